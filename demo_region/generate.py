@@ -1,0 +1,259 @@
+#!/usr/bin/env python3
+"""Write the invented demo region's input files (fixed seed, reproducible).
+
+The Zephyrine Plateau is made up: a karst plateau with five hydrostratigraphic
+units, a tight shale aquitard between two limestone aquifers, one large
+spring in an incised valley, a sinkhole-plain recharge area, 40 wells (six of
+them multi-zone), four pumping wells and three years of monthly heads. No
+place, well, spring or value here comes from a real site.
+
+Run ``python demo_region/generate.py [OUTDIR]``; it writes into this folder by default.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import sys
+from pathlib import Path
+
+import numpy as np
+
+SEED = 20261201
+CRS = "EPSG:32616"          # projected, metres; coordinates are invented
+X0, Y0 = 610_000.0, 4_100_000.0
+WIDTH, HEIGHT = 20_000.0, 15_000.0
+SPRING = (X0 + 1_500.0, Y0 + 7_500.0)
+
+UNITS = [
+    # code, name, rank, role, log10 K mean (m/s), log10 K sd, (min, max) m/s clip, K unit written in the file
+    ("CAP", "Ridgecap sandstone", 1, "aquifer", -6.9, 0.35, (1.2e-8, 9.0e-7), "cm/s"),
+    ("ULS", "Upper karst limestone", 2, "aquifer", -4.45, 0.55, (1.1e-6, 9.0e-3), "ft/d"),
+    ("SHL", "Parting shale", 3, "aquitard", -10.0, 0.35, (1.1e-13, 9.0e-10), "m/s"),
+    ("LCL", "Lower cherty limestone", 4, "aquifer", -5.2, 0.45, (1.1e-6, 9.0e-3), "m/d"),
+    ("BSH", "Basal shale", 5, "confining", -10.6, 0.3, (1.1e-13, 9.0e-10), "m/s"),
+]
+
+
+def ground(x, y):
+    """Ground elevation (m): plateau rising east, cut by the spring valley."""
+    lx, ly = x - X0, y - Y0
+    valley = 32.0 * np.exp(-((y - SPRING[1]) ** 2) / (2 * 1_200.0**2)) * np.exp(-(lx / 6_000.0))
+    return 262.0 + 0.0025 * lx + 3.0 * np.sin(lx / 1_700.0) * np.cos(ly / 2_300.0) - valley
+
+
+def dip(x, y):
+    return 0.0015 * (x - X0) + 0.0005 * (y - Y0)
+
+
+def tops(x, y):
+    """Top elevations (m) of ULS, SHL, LCL, BSH; CAP's top is the ground where present."""
+    d = dip(x, y)
+    return {"ULS": 236.0 + d, "SHL": 176.0 + d, "LCL": 161.0 + d, "BSH": 81.0 + d}
+
+
+def heads(x, y):
+    """Long-term mean heads (m) per aquifer."""
+    r = np.hypot(x - SPRING[0], y - SPRING[1])
+    h_uls = 233.0 + 0.0030 * r
+    h_lcl = 214.0 + 0.0016 * r
+    return {"ULS": h_uls, "LCL": h_lcl, "CAP": ground(x, y) - 5.0}  # CAP: perched, near the surface
+
+
+def smooth_field(rng, n_waves=6, scale=6_000.0):
+    """A smooth random field on the plateau with unit variance (sum of random cosines)."""
+    k = rng.normal(size=(n_waves, 2)) / scale
+    phase = rng.uniform(0, 2 * np.pi, n_waves)
+
+    def f(x, y):
+        arg = np.outer(x - X0, k[:, 0]) + np.outer(y - Y0, k[:, 1]) + phase
+        return np.sqrt(2.0 / n_waves) * np.cos(arg).sum(axis=1)
+    return f
+
+
+def unit_interval(code, x, y):
+    """(top_elev, bottom_elev) of a unit at one point; None where eroded."""
+    g = float(ground(x, y))
+    t = {k: float(v) for k, v in tops(x, y).items()}
+    if code == "CAP":
+        return (g, t["ULS"]) if g > t["ULS"] + 0.5 else None
+    order = ["ULS", "SHL", "LCL", "BSH"]
+    i = order.index(code)
+    top = min(t[code], g)
+    bottom = t[order[i + 1]] if i + 1 < len(order) else t[code] - 60.0
+    return (top, bottom) if top > bottom else None
+
+
+def build(out: Path) -> dict[str, int]:
+    rng = np.random.default_rng(SEED)
+    out.mkdir(parents=True, exist_ok=True)
+    fields = {u[0]: smooth_field(rng) for u in UNITS}
+
+    wells, picks, zones = [], [], []
+    plan = ([("monitoring", "ULS")] * 20 + [("monitoring", "LCL")] * 3 + [("multizone", None)] * 6
+            + [("supply", "ULS")] * 3 + [("pumping", "LCL")] + [("monitoring", "NOPICK")] * 4
+            + [("monitoring", "STRADDLE")] + [("monitoring", "CAP")] * 2)
+    names = iter(["Old Quarry Road", "Fenceline North", "Sinkhole Field", "Ridge Barn", "Mill Lane",
+                  "Cistern Hill", "Dry Hollow", "School Well", "Lantern Farm", "Hollow Oak"])
+    for i, (kind, target) in enumerate(plan):
+        wid = f"ZP-{i + 1:03d}"
+        x = X0 + rng.uniform(1_500, WIDTH - 800)
+        y = Y0 + rng.uniform(800, HEIGHT - 800)
+        if kind == "multizone":
+            x = X0 + 2_500 + (i % 6) * 3_000 + rng.uniform(-300, 300)
+        g = float(ground(x, y))
+        iv = {u[0]: unit_interval(u[0], x, y) for u in UNITS}
+        if target == "CAP" and iv["CAP"] is None:
+            target = "ULS"
+        if kind == "multizone" or target == "LCL" or kind == "pumping":
+            td = g - (iv["LCL"][0] - 62.0)
+        else:
+            td = g - (iv["SHL"][0] - 4.0)  # drilled a few metres into the shale
+        td = round(td, 2)
+        name = next(names) if i % 4 == 0 else ""
+        wells.append([wid, round(x, 1), round(y, 1), round(g, 2), td, kind, name])
+        if target != "NOPICK":
+            for code, *_ in UNITS:
+                if iv[code] is None:
+                    continue
+                top_d, bot_d = g - iv[code][0], g - iv[code][1]
+                if top_d >= td:
+                    break
+                picks.append([wid, code, round(max(top_d, 0.0), 2), round(min(bot_d, td), 2)])
+
+        def zone(zid, code, length, zkind, override=""):
+            top_e, bot_e = iv[code]
+            mid = 0.5 * (top_e + bot_e)
+            top_d = g - (mid + length / 2)
+            zones.append([wid, zid, round(max(top_d, 0.5), 2), round(top_d + length, 2), zkind, override, code])
+
+        if kind == "multizone":
+            for j, code in enumerate(["CAP", "ULS", "SHL", "LCL"]):
+                if iv[code] is not None:
+                    zone(f"P{j + 1}", code, 6.0 if code != "SHL" else 4.0, "port" if code != "SHL" else "packer")
+        elif target == "STRADDLE":
+            contact = g - iv["SHL"][0]
+            zones.append([wid, "S1", round(contact - 7.0, 2), round(contact + 3.0, 2), "screen", "", "ULS"])
+        elif target == "NOPICK":
+            zone("S1", "ULS", 8.0, "screen")
+        elif kind in ("supply", "pumping"):
+            zone("S1", target, 30.0, "open_hole")
+        else:
+            zone("S1", target, 6.0, "screen", override="CAP" if (target == "CAP" and i % 2) else "")
+
+    # K tests: a smooth log-K field per unit plus test-scale scatter, clipped to the unit's range.
+    ktests = []
+    kparams = {u[0]: u for u in UNITS}
+    wxy = {w[0]: (w[1], w[2]) for w in wells}
+    for wid, zid, top_d, bot_d, zkind, override, code in zones:
+        _, _, _, _, mu, sd, (lo, hi), kunit = kparams[code]
+        x, y = wxy[wid]
+        base = mu + sd * (0.8 * fields[code](np.array([x]), np.array([y]))[0])
+        method = "packer" if zkind == "packer" else ("pumping" if zkind == "open_hole" else "slug")
+        n_tests = 1 if method == "pumping" else int(rng.integers(1, 4))
+        for t in range(n_tests):
+            log_k = base + sd * 0.6 * rng.normal()
+            k_ms = float(np.clip(10 ** log_k, lo, hi))
+            from_ms = {"m/s": 1.0, "m/d": 86_400.0, "cm/s": 100.0, "ft/d": 86_400.0 / 0.3048}[kunit]
+            q = rng.choice(["good", "good", "good", "good", "good", "fair", "poor"])
+            day = f"2022-{int(rng.integers(4, 10)):02d}-{int(rng.integers(1, 28)):02d}"
+            ktests.append([wid, zid, day, method, f"{k_ms * from_ms:.4g}", kunit, q, "demo field campaign"])
+
+    # Heads: monthly readings 2022-01 to 2024-12; a seasonal swing, noise, and pumping cones.
+    pumpers = [w for w in wells if w[5] in ("supply", "pumping")]
+    head_rows = []
+    months = [f"{yy}-{mm:02d}-15T10:00:00" for yy in (2022, 2023, 2024) for mm in range(1, 13)]
+    season = np.sin(2 * np.pi * (np.arange(36) - 2) / 12.0)
+    for wid, zid, top_d, bot_d, zkind, override, code in zones:
+        x, y = wxy[wid]
+        g = float(ground(x, y))
+        h = {k: float(v) for k, v in heads(x, y).items()}
+        if code == "SHL":
+            frac = 0.5
+            base = h["ULS"] * (1 - frac) + h["LCL"] * frac
+            amp = 0.6
+        else:
+            base = h[code]
+            amp = 1.6 if code in ("ULS", "CAP") else 0.5
+        for p in pumpers:
+            if p[5] == "supply" and code in ("ULS",) or p[5] == "pumping" and code == "LCL":
+                r = max(np.hypot(x - p[1], y - p[2]), 50.0)
+                base -= max(0.0, 1.2 * np.log(3_000.0 / r))
+        base = min(base, g - 1.0)
+        ref = round(g + 0.6, 2)
+        for m, when in enumerate(months):
+            val = base + amp * season[m] + 0.12 * rng.normal()
+            if zkind == "screen" and m % 2 == 0:
+                head_rows.append([wid, zid, when, "", f"{ref - val:.2f}", f"{ref:.2f}", "good"])
+            else:
+                head_rows.append([wid, zid, when, f"{val:.2f}", "", "", "good"])
+
+    pumping = []
+    rates = [("1500", "m3/d"), ("350", "gpm"), ("12", "L/s"), ("900", "m3/d")]
+    for p, (rate, unit) in zip(pumpers, rates):
+        pumping.append([p[0], "S1", rate, unit, "2021-06-01T00:00:00", ""])
+
+    springs = [["SP-1", round(SPRING[0], 1), round(SPRING[1], 1), round(float(ground(*SPRING)), 2), "Lanternfall Spring"],
+               ["SP-2", round(X0 + 3_200.0, 1), round(Y0 + 11_800.0, 1),
+                round(float(ground(X0 + 3_200.0, Y0 + 11_800.0)) - 2.0, 2), "Wren Seep"]]
+    discharge = []
+    for m, when in enumerate(months):
+        q1 = 28_000.0 * (1 + 0.35 * season[m]) * float(np.exp(0.1 * rng.normal()))
+        discharge.append(["SP-1", when, f"{q1:.0f}", "m3/d"])
+        discharge.append(["SP-2", when, f"{q1 / 40.0 / 86.4:.2f}", "L/s"])
+
+    _write(out / "units.csv", ["code", "name", "rank", "role", "parent"],
+           [[u[0], u[1], u[2], u[3], ""] for u in UNITS])
+    _write(out / "wells.csv", ["well_id", "x", "y", "ground_elev", "total_depth", "kind", "name"], wells)
+    _write(out / "picks.csv", ["well_id", "unit", "top_depth", "bottom_depth"], picks)
+    _write(out / "zones.csv", ["well_id", "zone_id", "top_depth", "bottom_depth", "kind", "unit"],
+           [z[:6] for z in zones])
+    _write(out / "ktests.csv", ["well_id", "zone_id", "tested_on", "method", "k", "k_unit", "quality", "source"],
+           ktests)
+    _write(out / "heads.csv", ["well_id", "zone_id", "measured_at", "head", "depth_to_water", "ref_elev", "quality"],
+           head_rows)
+    _write(out / "pumping.csv", ["well_id", "zone_id", "rate", "rate_unit", "start", "end"], pumping)
+    _write(out / "springs.csv", ["spring_id", "x", "y", "elev", "name"], springs)
+    _write(out / "discharge.csv", ["spring_id", "measured_at", "discharge", "rate_unit"], discharge)
+    _write_areas(out / "areas.geojson")
+    (out / "crs.txt").write_text(CRS + "\n")
+    return {"wells": len(wells), "zones": len(zones), "ktests": len(ktests), "heads": len(head_rows)}
+
+
+def _write(path: Path, header, rows):
+    with open(path, "w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh, lineterminator="\n")
+        w.writerow(header)
+        w.writerows(rows)
+
+
+def _write_areas(path: Path):
+    """Recharge area and model domain as RFC 7946 GeoJSON (WGS 84 longitude/latitude)."""
+    from pyproj import Transformer
+
+    tr = Transformer.from_crs(CRS, "EPSG:4326", always_xy=True)
+
+    def ring(points):
+        pts = [tr.transform(x, y) for x, y in points]
+        pts.append(pts[0])
+        return [[round(lon, 7), round(lat, 7)] for lon, lat in pts]
+
+    domain = [(X0, Y0), (X0 + WIDTH, Y0), (X0 + WIDTH, Y0 + HEIGHT), (X0, Y0 + HEIGHT)]
+    t = np.linspace(0, 2 * np.pi, 24, endpoint=False)
+    cx, cy = X0 + 15_500.0, Y0 + 8_000.0
+    recharge = [(cx + 2_600 * np.cos(a) * (1 + 0.15 * np.sin(3 * a)), cy + 1_900 * np.sin(a)) for a in t]
+    features = [
+        {"type": "Feature", "properties": {"area_id": "DOMAIN", "kind": "domain", "unit": None,
+                                           "label": "Model domain"},
+         "geometry": {"type": "Polygon", "coordinates": [ring(domain)]}},
+        {"type": "Feature", "properties": {"area_id": "RA-1", "kind": "recharge", "unit": "ULS",
+                                           "label": "Sinkhole plain"},
+         "geometry": {"type": "Polygon", "coordinates": [ring(recharge)]}},
+    ]
+    path.write_text(json.dumps({"type": "FeatureCollection", "features": features}, indent=1) + "\n")
+
+
+if __name__ == "__main__":
+    target = Path(sys.argv[1]) if len(sys.argv) > 1 else Path(__file__).resolve().parent
+    counts = build(target)
+    print(", ".join(f"{k}: {v}" for k, v in counts.items()))

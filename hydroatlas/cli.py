@@ -1,0 +1,206 @@
+"""The ``hydroatlas`` command line: argument parsing only; each command calls one workflow.
+
+Exit codes: 0 success, 2 bad usage or bad input (one-line message on stderr),
+1 internal error (traceback with --debug).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import sys
+import traceback
+
+import click
+import pandas as pd
+
+from . import workflows
+from .errors import HydroatlasError
+from .quantities import known_units
+from .stats import PER_CHOICES
+from .store import open_store
+from .store.importers import KINDS
+
+CAUTION = ("Results are screening-level estimates for planning and model set-up, not a substitute for "
+           "site-specific investigation or for the judgement of a licensed professional geoscientist or "
+           "engineer; well construction, testing and pumping are governed by local rules and permits.")
+
+_FORMATS = click.Choice(["table", "csv", "json"])
+
+
+class _Group(click.Group):
+    """Turn hydroatlas errors into exit code 2 and one line; anything else into exit code 1."""
+
+    def invoke(self, ctx):
+        try:
+            return super().invoke(ctx)
+        except HydroatlasError as exc:
+            if ctx.obj and ctx.obj.get("debug"):
+                traceback.print_exc()
+            click.echo(f"hydroatlas: error: {exc}", err=True)
+            ctx.exit(2)
+        except (click.exceptions.Exit, click.ClickException, click.exceptions.Abort):
+            raise
+        except Exception as exc:  # noqa: BLE001 - the last guard of the program
+            if ctx.obj and ctx.obj.get("debug"):
+                traceback.print_exc()
+            click.echo(f"hydroatlas: internal error: {type(exc).__name__}: {exc} (rerun with --debug "
+                       "for a traceback and please report it)", err=True)
+            ctx.exit(1)
+
+
+@click.group(cls=_Group)
+@click.option("--debug", is_flag=True, help="Show tracebacks on errors.")
+@click.version_option(package_name="hydroatlas")
+@click.pass_context
+def main(ctx, debug):
+    """hydroatlas: a spatial store and mapper of hydrostratigraphic properties.
+
+    The store (a GeoPackage file) is the first argument of every command.
+    """
+    ctx.ensure_object(dict)
+    ctx.obj["debug"] = debug
+
+
+def _json_safe(value):
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {k: _json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_json_safe(v) for v in value]
+    if hasattr(value, "item"):
+        return _json_safe(value.item())
+    return value
+
+
+def _emit(frame: pd.DataFrame, fmt: str, records=None):
+    if fmt == "json":
+        data = records if records is not None else frame.to_dict(orient="records")
+        click.echo(json.dumps(_json_safe(data), indent=2))
+    elif fmt == "csv":
+        click.echo(frame.to_csv(index=False), nl=False)
+    else:
+        click.echo(frame.to_string(index=False, na_rep="-", float_format=lambda v: f"{v:.4g}")
+                   if not frame.empty else "(nothing to show)")
+
+
+def _progress(label):
+    from tqdm import tqdm
+
+    bar = tqdm(desc=label, unit=" rows", disable=not sys.stderr.isatty(), leave=False)
+    return bar
+
+
+@main.command()
+@click.argument("store")
+@click.option("--crs", required=True, help="Horizontal CRS of the store, e.g. EPSG:32615.")
+@click.option("--length-unit", type=click.Choice(["m", "ft"]), default="m", show_default=True,
+              help="Unit of depths, elevations and heads.")
+@click.option("--vertical-datum", default="unspecified", show_default=True, help="Label of the vertical datum.")
+def init(store, crs, length_unit, vertical_datum):
+    """Create a new, empty store.
+
+    Example: hydroatlas init district.gpkg --crs EPSG:32615 --length-unit m --vertical-datum NAVD88
+    """
+    s = workflows.init_store(store, crs=crs, length_unit=length_unit, vertical_datum=vertical_datum)
+    click.echo(f"created {store} (CRS {s.settings.crs.name}, lengths in {s.settings.length_unit}, "
+               f"vertical datum {s.settings.vertical_datum})")
+    s.close()
+
+
+@main.command(name="import")
+@click.argument("store")
+@click.argument("kind", type=click.Choice(KINDS))
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.option("--input-crs", default=None, help="CRS of the file's coordinates if not the store's.")
+def import_(store, kind, file, input_crs):
+    """Import one file of KIND into the store, whole or not at all.
+
+    Re-importing a file updates rows by their natural key and adds no duplicates.
+    Import in this order: units, wells, picks, zones, then ktests, heads,
+    pumping; springs before discharge; areas any time after units.
+
+    Example: hydroatlas import district.gpkg wells wells.csv --input-crs EPSG:4326
+    """
+    with open_store(store) as s:
+        bar = _progress(kind)
+        try:
+            report = workflows.import_data(s, kind, file, input_crs=input_crs, progress=bar.update)
+        finally:
+            bar.close()
+    click.echo(report.summary())
+
+
+@main.command()
+@click.argument("store")
+@click.option("--json", "as_json", is_flag=True, help="Print the findings as JSON.")
+def check(store, as_json):
+    """Report data-quality findings: straddling zones, pick gaps and overlaps,
+    wells without picks, orphans, K outliers and heads far outside their unit's range."""
+    with open_store(store) as s:
+        findings = workflows.check_store(s)
+    frame = pd.DataFrame(findings, columns=["kind", "severity", "well_id", "zone_id", "unit", "message"])
+    if as_json:
+        _emit(frame, "json", findings)
+    else:
+        _emit(frame, "table")
+        counts = frame["kind"].value_counts()
+        click.echo("\n" + (", ".join(f"{k}: {v}" for k, v in counts.items()) or "no findings"))
+
+
+@main.command()
+@click.argument("store")
+@click.option("--unit", default=None, help="Only this unit code.")
+@click.option("--k-unit", type=click.Choice(known_units("hydraulic conductivity")), default="m/d",
+              show_default=True, help="Unit of the K figures.")
+@click.option("--per", type=click.Choice(PER_CHOICES), default="test", show_default=True,
+              help="What counts once: every test, the log-mean of each zone, or of each well.")
+@click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
+@click.option("--exclude-straddles", is_flag=True, help="Leave out zones that cross units.")
+@click.option("--exclude-poor", is_flag=True, help="Leave out tests of quality 'poor'.")
+@click.option("--wells", "by_well", is_flag=True,
+              help="Per-well transmissivity and effective K_h / K_v instead of unit statistics.")
+def stats(store, unit, k_unit, per, fmt, exclude_straddles, exclude_poor, by_well):
+    """Hydraulic-conductivity statistics per unit (geometric mean, log variance, 95 % CI).
+
+    Variances are sample variances (ddof = 1) of log10 K and ln K.
+
+    Example: hydroatlas stats district.gpkg --per zone --k-unit ft/d --format json
+    """
+    with open_store(store) as s:
+        if by_well:
+            frame = workflows.well_profiles(s, k_unit=k_unit, unit=unit, exclude_poor=exclude_poor)
+            _emit(frame, fmt)
+            return
+        rows = workflows.unit_stats(s, unit=unit, per=per, k_unit=k_unit, exclude_straddles=exclude_straddles,
+                                    exclude_poor=exclude_poor)
+    if fmt == "json":
+        _emit(pd.DataFrame(), "json", rows)
+        return
+    frame = pd.DataFrame(rows)
+    if fmt == "table":
+        frame["ci95"] = [("-" if v is None or v[0] is None or not math.isfinite(v[0])
+                          else f"{v[0]:.3g}-{v[1]:.3g}") for v in frame["k_geomean_ci95"]]
+        frame = frame[["unit", "role", "n_tests", "n_zones", "n_wells", "k_geomean", "ci95", "k_median",
+                       "k_min", "k_max", "log10k_mean", "log10k_std", "lnk_var"]]
+        click.echo(f"K in {k_unit}; statistics per {per}")
+    else:
+        lo_hi = frame.pop("k_geomean_ci95")
+        frame["k_geomean_ci95_low"] = [v[0] if v else None for v in lo_hi]
+        frame["k_geomean_ci95_high"] = [v[1] if v else None for v in lo_hi]
+    _emit(frame, fmt)
+
+
+@main.command()
+@click.option("--out", default="demo_out", show_default=True, type=click.Path(file_okay=False),
+              help="Folder for the demo store and its outputs.")
+def demo(out):
+    """Build the invented demo region and run the whole pipeline on it."""
+    from .demo import run_demo
+
+    run_demo(out, echo=click.echo)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

@@ -1,0 +1,146 @@
+"""Data-quality findings over the store's tables (pure: DataFrames in, findings out)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from .assign import finest_picks
+
+# A K test is an outlier when its log10 K lies more than this many sample
+# standard deviations from its unit's mean (needs at least MIN_TESTS_FOR_OUTLIER tests).
+K_OUTLIER_SD = 3.0
+MIN_TESTS_FOR_OUTLIER = 5
+# A zone's median head is far outside its unit when its robust z-score
+# (distance from the unit median over 1.4826 MAD) exceeds this.
+HEAD_OUTLIER_Z = 5.0
+# Pick gaps and overlaps shorter than this (store length unit) are ignored.
+PICK_TOLERANCE = 0.01
+
+
+def _finding(kind, severity, message, **where) -> dict:
+    row = {"kind": kind, "severity": severity, "well_id": None, "zone_id": None, "unit": None}
+    row.update(where)
+    row["message"] = message
+    return row
+
+
+def find_issues(*, wells, zones, picks, units, ktests, heads, assignment) -> list[dict]:
+    """Findings about straddles, gaps, orphans and outliers.
+
+    Parameters are the store tables as DataFrames; ``assignment`` is the result
+    of :func:`hydroatlas.assign.assign_zones`; ``heads`` needs well_id, zone_id, head.
+    """
+    out: list[dict] = []
+    asg = assignment
+    for r in asg[asg["straddles"]].itertuples():
+        out.append(_finding("straddle", "warning",
+                            f"zone crosses units {r.units_crossed}; assigned to {r.unit} "
+                            f"({r.overlap_fraction:.0%} of its length)",
+                            well_id=r.well_id, zone_id=r.zone_id, unit=r.unit))
+    for r in asg[(asg["assigned_by"] != "override") & (asg["coverage"] < 1 - 1e-6)].itertuples():
+        if r.assigned_by == "none":
+            msg = "zone lies outside every picked unit of its well; it has no unit"
+        else:
+            msg = f"{1 - r.coverage:.0%} of the zone lies outside the picked units"
+        out.append(_finding("zone_outside_units", "warning", msg, well_id=r.well_id, zone_id=r.zone_id,
+                            unit=r.unit))
+    for r in asg[asg["assigned_by"] == "inferred"].itertuples():
+        out.append(_finding("inferred_unit", "info", f"unit {r.unit} from picks inferred at neighbouring wells",
+                            well_id=r.well_id, zone_id=r.zone_id, unit=r.unit))
+    out += _pick_findings(wells, picks, units)
+    with_picks = set(picks["well_id"])
+    for w in wells.loc[~wells["well_id"].isin(with_picks), "well_id"]:
+        out.append(_finding("well_without_picks", "warning",
+                            "well has no unit picks; its zones use inferred unit elevations", well_id=w))
+    for w in wells.loc[~wells["well_id"].isin(set(zones["well_id"])), "well_id"]:
+        out.append(_finding("well_without_zones", "info", "well has no zones (no tests or heads can refer to it)",
+                            well_id=w))
+    measured = set(zip(ktests["well_id"], ktests["zone_id"])) | set(zip(heads["well_id"], heads["zone_id"]))
+    for r in zones.itertuples():
+        if (r.well_id, r.zone_id) not in measured:
+            out.append(_finding("zone_without_data", "info", "zone has neither K tests nor heads",
+                                well_id=r.well_id, zone_id=r.zone_id))
+    tested = ktests.merge(asg[["well_id", "zone_id", "unit"]], on=["well_id", "zone_id"], how="left")
+    for code in units.loc[~units["code"].isin(set(tested["unit"].dropna())), "code"]:
+        out.append(_finding("unit_without_tests", "info", "no K test is assigned to this unit", unit=code))
+    out += _k_outliers(tested)
+    out += _head_findings(heads, asg)
+    return out
+
+
+def _pick_findings(wells, picks, units) -> list[dict]:
+    out = []
+    if picks.empty:
+        return out
+    rank = dict(zip(units["code"], units["rank"]))
+    fine = finest_picks(picks, units).copy()
+    fine["rank"] = fine["unit"].map(rank)
+    total = dict(zip(wells["well_id"], wells["total_depth"]))
+    for well, g in fine.sort_values(["well_id", "top_depth"]).groupby("well_id"):
+        prev = None
+        for r in g.itertuples():
+            td = total.get(well)
+            if td is not None and np.isfinite(td) and r.bottom_depth > td + PICK_TOLERANCE:
+                out.append(_finding("pick_below_total_depth", "info",
+                                    f"pick of {r.unit} reaches {r.bottom_depth:g}, below total depth {td:g}",
+                                    well_id=well, unit=r.unit))
+            if prev is not None:
+                if r.top_depth > prev.bottom_depth + PICK_TOLERANCE:
+                    out.append(_finding("pick_gap", "warning",
+                                        f"gap between {prev.unit} (bottom {prev.bottom_depth:g}) and {r.unit} "
+                                        f"(top {r.top_depth:g})", well_id=well, unit=r.unit))
+                elif r.top_depth < prev.bottom_depth - PICK_TOLERANCE:
+                    out.append(_finding("pick_overlap", "warning",
+                                        f"{r.unit} (top {r.top_depth:g}) overlaps {prev.unit} "
+                                        f"(bottom {prev.bottom_depth:g})", well_id=well, unit=r.unit))
+                if r.rank < prev.rank:
+                    out.append(_finding("pick_order", "warning",
+                                        f"{r.unit} lies below {prev.unit} but ranks above it in the unit list",
+                                        well_id=well, unit=r.unit))
+            prev = r
+    return out
+
+
+def _k_outliers(tested: pd.DataFrame) -> list[dict]:
+    out = []
+    t = tested[tested["unit"].notna()].copy()
+    if t.empty:
+        return out
+    t["lg"] = np.log10(t["k_ms"].to_numpy(float))
+    grp = t.groupby("unit")["lg"]
+    t["mean"] = grp.transform("mean")
+    t["sd"] = grp.transform(lambda s: s.std(ddof=1))
+    t["n"] = grp.transform("size")
+    flag = (t["n"] >= MIN_TESTS_FOR_OUTLIER) & ((t["lg"] - t["mean"]).abs() > K_OUTLIER_SD * t["sd"])
+    for r in t[flag].itertuples():
+        out.append(_finding("k_outlier", "warning",
+                            f"log10 K = {r.lg:.2f} lies {abs(r.lg - r.mean) / r.sd:.1f} standard deviations from "
+                            f"the unit mean {r.mean:.2f} (test {r.test_id})",
+                            well_id=r.well_id, zone_id=r.zone_id, unit=r.unit))
+    return out
+
+
+def _head_findings(heads: pd.DataFrame, asg: pd.DataFrame) -> list[dict]:
+    out = []
+    if heads.empty:
+        return out
+    med = heads.groupby(["well_id", "zone_id"])["head"].median().rename("head").reset_index()
+    h = med.merge(asg[["well_id", "zone_id", "unit", "bottom_elev"]], on=["well_id", "zone_id"], how="left")
+    for r in h[h["head"] < h["bottom_elev"]].itertuples():
+        out.append(_finding("head_below_zone", "warning",
+                            f"median head {r.head:.2f} is below the bottom of the zone ({r.bottom_elev:.2f}); "
+                            "a dry zone or a datum error", well_id=r.well_id, zone_id=r.zone_id, unit=r.unit))
+    h = h[h["unit"].notna()].copy()
+    grp = h.groupby("unit")["head"]
+    h["median_u"] = grp.transform("median")
+    h["mad"] = grp.transform(lambda s: (s - s.median()).abs().median()) * 1.4826
+    h["n"] = grp.transform("size")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = (h["head"] - h["median_u"]).abs() / h["mad"]
+    flag = (h["n"] >= MIN_TESTS_FOR_OUTLIER) & (h["mad"] > 0) & (z > HEAD_OUTLIER_Z)
+    for r, zz in zip(h[flag].itertuples(), z[flag]):
+        out.append(_finding("head_outlier", "warning",
+                            f"median head {r.head:.2f} is far from the unit's median {r.median_u:.2f} "
+                            f"(robust z = {zz:.1f})", well_id=r.well_id, zone_id=r.zone_id, unit=r.unit))
+    return out

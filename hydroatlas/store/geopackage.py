@@ -1,0 +1,357 @@
+"""The default backend: one GeoPackage file (OGC 12-128r18, version 1.4).
+
+Why sqlite3 by hand and not GDAL/pyogrio for writing: an import must be one
+transaction over feature layers and attribute tables together, with foreign
+keys, CHECK constraints and ON CONFLICT upserts on natural keys; GDAL's writer
+offers none of that. The GeoPackage parts written here are the required
+system tables, the feature-table registration and the geometry blob header
+(spec clause 2.1.3); the WKB inside comes from shapely. GDAL-based tools read
+the result as ordinary GeoPackage layers.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import sqlite3
+import struct
+from contextlib import contextmanager
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Callable, Iterator
+
+import numpy as np
+import pandas as pd
+import shapely
+from pyproj import CRS
+
+from ..errors import NotAStoreError, ParameterError, StoreError
+from .base import Store, StoreSettings, WriteResult
+from .schema import FEATURE_TABLES, SCHEMA_VERSION, TABLES, Table
+
+GPKG_APPLICATION_ID = 0x47504B47  # "GPKG"
+GPKG_USER_VERSION = 10400          # GeoPackage 1.4
+SETTINGS_TABLE = "hydroatlas_settings"
+CUSTOM_SRS_ID = 100000
+CHUNK_ROWS = 50_000
+
+_ENVELOPE_BYTES = {0: 0, 1: 32, 2: 48, 3: 48, 4: 64}
+
+
+def q(name: str) -> str:
+    """Quote an SQL identifier (some columns, like ``end``, are keywords)."""
+    return '"' + name.replace('"', '""') + '"'
+
+
+def _now() -> str:
+    return datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
+
+
+def encode_geometries(geoms, srs_id: int) -> list[bytes]:
+    """GeoPackage binary blobs (little-endian header, xy envelope except for points)."""
+    geoms = np.asarray(geoms, dtype=object)
+    wkbs = shapely.to_wkb(geoms, byte_order=1, output_dimension=2)
+    blobs = []
+    for geom, wkb in zip(geoms, wkbs):
+        if shapely.get_type_id(geom) == 0:  # point: no envelope
+            blobs.append(b"GP\x00\x01" + struct.pack("<i", srs_id) + wkb)
+        else:
+            minx, miny, maxx, maxy = shapely.bounds(geom)
+            blobs.append(b"GP\x00\x03" + struct.pack("<i4d", srs_id, minx, maxx, miny, maxy) + wkb)
+    return blobs
+
+
+def decode_geometries(blobs) -> np.ndarray:
+    """Shapely geometries from GeoPackage binary blobs."""
+    wkbs = []
+    for blob in blobs:
+        flags = blob[3]
+        start = 8 + _ENVELOPE_BYTES[(flags >> 1) & 0b111]
+        wkbs.append(bytes(blob[start:]))
+    return shapely.from_wkb(wkbs)
+
+
+def _column_sql(col) -> str:
+    parts = [q(col.name), col.sql_type]
+    if col.not_null:
+        parts.append("NOT NULL")
+    if col.default is not None:
+        parts.append(f"DEFAULT {col.default}")
+    return " ".join(parts)
+
+
+def table_ddl(spec: Table) -> list[str]:
+    """CREATE statements for one table and its natural-key index."""
+    cols = ["fid INTEGER PRIMARY KEY AUTOINCREMENT"]
+    if spec.geometry:
+        cols.append(f"geom {spec.geometry}")
+    cols += [_column_sql(c) for c in spec.columns]
+    if spec.provenance:
+        cols += ["attrs TEXT", "source_file TEXT NOT NULL", "source_row INTEGER NOT NULL"]
+    for check in spec.checks:
+        cols.append(f"CHECK ({check})")
+    for local, parent, remote in spec.foreign_keys:
+        cols.append(f"FOREIGN KEY ({', '.join(map(q, local))}) REFERENCES {q(parent)} "
+                    f"({', '.join(map(q, remote))})")
+    stmts = [f"CREATE TABLE {q(spec.name)} (\n  " + ",\n  ".join(cols) + "\n)"]
+    if spec.key:
+        stmts.append(f"CREATE UNIQUE INDEX {q(spec.name + '_key')} ON {q(spec.name)} "
+                     f"({', '.join(map(q, spec.key))})")
+    return stmts
+
+
+_GPKG_SYSTEM_DDL = [
+    """CREATE TABLE gpkg_spatial_ref_sys (
+      srs_name TEXT NOT NULL, srs_id INTEGER PRIMARY KEY, organization TEXT NOT NULL,
+      organization_coordsys_id INTEGER NOT NULL, definition TEXT NOT NULL, description TEXT)""",
+    """CREATE TABLE gpkg_contents (
+      table_name TEXT NOT NULL PRIMARY KEY, data_type TEXT NOT NULL, identifier TEXT UNIQUE,
+      description TEXT DEFAULT '',
+      last_change DATETIME NOT NULL DEFAULT (strftime('%Y-%m-%dT%H:%M:%fZ','now')),
+      min_x DOUBLE, min_y DOUBLE, max_x DOUBLE, max_y DOUBLE, srs_id INTEGER,
+      CONSTRAINT fk_gc_r_srs_id FOREIGN KEY (srs_id) REFERENCES gpkg_spatial_ref_sys(srs_id))""",
+    """CREATE TABLE gpkg_geometry_columns (
+      table_name TEXT NOT NULL, column_name TEXT NOT NULL, geometry_type_name TEXT NOT NULL,
+      srs_id INTEGER NOT NULL, z TINYINT NOT NULL, m TINYINT NOT NULL,
+      CONSTRAINT pk_geom_cols PRIMARY KEY (table_name, column_name),
+      CONSTRAINT uk_gc_table_name UNIQUE (table_name),
+      CONSTRAINT fk_gc_tn FOREIGN KEY (table_name) REFERENCES gpkg_contents(table_name),
+      CONSTRAINT fk_gc_srs FOREIGN KEY (srs_id) REFERENCES gpkg_spatial_ref_sys (srs_id))""",
+]
+
+_WGS84_WKT = CRS.from_epsg(4326).to_wkt("WKT1_GDAL")
+
+
+def _srs_row(crs: CRS) -> tuple:
+    epsg = crs.to_epsg(min_confidence=90)
+    wkt = crs.to_wkt("WKT1_GDAL") or crs.to_wkt()
+    if epsg:
+        return (crs.name, epsg, "EPSG", epsg, wkt, crs.name)
+    return (crs.name, CUSTOM_SRS_ID, "NONE", CUSTOM_SRS_ID, wkt, crs.name)
+
+
+class GeoPackageStore(Store):
+    """A store in one GeoPackage file; open with :func:`hydroatlas.open_store`."""
+
+    def __init__(self, path: str | os.PathLike, conn: sqlite3.Connection, settings: StoreSettings,
+                 srs_id: int):
+        self.location = str(path)
+        self._conn = conn
+        self.settings = settings
+        self.srs_id = srs_id
+        self._in_txn = False
+
+    # -- creation and opening -------------------------------------------------
+    @classmethod
+    def create(cls, path, settings: StoreSettings) -> "GeoPackageStore":
+        path = Path(path)
+        if path.exists():
+            raise StoreError(f"{path} already exists; choose a new file name for the store")
+        if not path.parent.exists():
+            raise StoreError(f"folder {path.parent} does not exist")
+        conn = cls._connect(path)
+        try:
+            conn.execute("BEGIN")
+            conn.execute(f"PRAGMA application_id = {GPKG_APPLICATION_ID}")
+            conn.execute(f"PRAGMA user_version = {GPKG_USER_VERSION}")
+            for stmt in _GPKG_SYSTEM_DDL:
+                conn.execute(stmt)
+            srs = [
+                ("Undefined cartesian SRS", -1, "NONE", -1, "undefined", "undefined cartesian coordinate reference system"),
+                ("Undefined geographic SRS", 0, "NONE", 0, "undefined", "undefined geographic coordinate reference system"),
+                ("WGS 84 geodetic", 4326, "EPSG", 4326, _WGS84_WKT, "longitude/latitude coordinates in decimal degrees on the WGS 84 spheroid"),
+            ]
+            row = _srs_row(settings.crs)
+            if row[1] != 4326:
+                srs.append(row)
+            conn.executemany("INSERT INTO gpkg_spatial_ref_sys VALUES (?,?,?,?,?,?)", srs)
+            srs_id = row[1]
+            conn.execute(f"CREATE TABLE {SETTINGS_TABLE} (key TEXT PRIMARY KEY, value TEXT NOT NULL)")
+            conn.executemany(f"INSERT INTO {SETTINGS_TABLE} VALUES (?, ?)", [
+                ("schema_version", SCHEMA_VERSION),
+                ("crs", settings.crs.to_wkt()),
+                ("length_unit", settings.length_unit),
+                ("vertical_datum", settings.vertical_datum),
+                ("created_at", _now()),
+            ])
+            for spec in TABLES.values():
+                for stmt in table_ddl(spec):
+                    conn.execute(stmt)
+                conn.execute(
+                    "INSERT INTO gpkg_contents (table_name, data_type, identifier, description, last_change, srs_id)"
+                    " VALUES (?, ?, ?, ?, ?, ?)",
+                    (spec.name, "features" if spec.geometry else "attributes", spec.name,
+                     spec.description, _now(), srs_id if spec.geometry else None))
+                if spec.geometry:
+                    conn.execute("INSERT INTO gpkg_geometry_columns VALUES (?, 'geom', ?, ?, 0, 0)",
+                                 (spec.name, spec.geometry, srs_id))
+            conn.execute("COMMIT")
+        except BaseException:
+            conn.close()
+            path.unlink(missing_ok=True)
+            raise
+        return cls(path, conn, settings, srs_id)
+
+    @classmethod
+    def open(cls, path) -> "GeoPackageStore":
+        path = Path(path)
+        if not path.is_file():
+            raise NotAStoreError(f"{path} does not exist; create a store with 'hydroatlas init {path} --crs EPSG:NNNN'")
+        try:
+            conn = cls._connect(path)
+            app_id = conn.execute("PRAGMA application_id").fetchone()[0]
+            has_settings = conn.execute(
+                "SELECT count(*) FROM sqlite_master WHERE type='table' AND name=?", (SETTINGS_TABLE,)).fetchone()[0]
+        except sqlite3.DatabaseError:
+            raise NotAStoreError(f"{path} is not a hydroatlas store (not a GeoPackage/SQLite file)") from None
+        if app_id != GPKG_APPLICATION_ID or not has_settings:
+            conn.close()
+            raise NotAStoreError(f"{path} is not a hydroatlas store (a GeoPackage made by "
+                                 "'hydroatlas init' is expected)")
+        values = dict(conn.execute(f"SELECT key, value FROM {SETTINGS_TABLE}").fetchall())
+        settings = StoreSettings(CRS.from_wkt(values["crs"]), values["length_unit"], values["vertical_datum"])
+        srs_id = conn.execute("SELECT srs_id FROM gpkg_geometry_columns WHERE table_name='wells'").fetchone()[0]
+        return cls(path, conn, settings, srs_id)
+
+    @staticmethod
+    def _connect(path) -> sqlite3.Connection:
+        conn = sqlite3.connect(str(path), isolation_level=None)
+        conn.execute("PRAGMA foreign_keys = ON")
+        conn.execute("PRAGMA synchronous = NORMAL")
+        conn.execute("PRAGMA cache_size = -262144")  # 256 MiB page cache for large imports
+        return conn
+
+    # -- reading --------------------------------------------------------------
+    def _spec(self, table: str) -> Table:
+        try:
+            return TABLES[table]
+        except KeyError:
+            raise ParameterError(f"unknown table {table!r}; expected one of {sorted(TABLES)}") from None
+
+    def read(self, table: str, columns: list[str] | None = None) -> pd.DataFrame:
+        spec = self._spec(table)
+        cols = list(columns) if columns else list(spec.column_names)
+        bad = set(cols) - set(spec.column_names)
+        if bad:
+            raise ParameterError(f"table {table} has no column(s) {sorted(bad)}")
+        sql = f"SELECT {', '.join(map(q, cols))} FROM {q(table)} ORDER BY fid"
+        cur = self._conn.execute(sql)
+        frame = pd.DataFrame.from_records(cur.fetchall(), columns=cols)
+        for c in spec.columns:
+            if c.name in frame and c.sql_type == "REAL":
+                frame[c.name] = pd.to_numeric(frame[c.name]).astype(float)
+        return frame
+
+    def read_geometries(self, table: str):
+        import geopandas as gpd
+
+        spec = self._spec(table)
+        if not spec.geometry:
+            raise ParameterError(f"table {table} has no geometry")
+        frame = self.read(table)
+        blobs = [r[0] for r in self._conn.execute(f"SELECT geom FROM {q(table)} ORDER BY fid")]
+        geoms = decode_geometries(blobs) if blobs else []
+        return gpd.GeoDataFrame(frame, geometry=list(geoms), crs=self.settings.crs)
+
+    def count(self, table: str) -> int:
+        self._spec(table)
+        return self._conn.execute(f"SELECT count(*) FROM {q(table)}").fetchone()[0]
+
+    def snapshot(self) -> dict[str, list[tuple]]:
+        """Every row of every table, for tests that prove nothing changed."""
+        out = {}
+        for name in TABLES:
+            out[name] = self._conn.execute(f"SELECT * FROM {q(name)} ORDER BY fid").fetchall()
+        out["gpkg_contents"] = self._conn.execute("SELECT * FROM gpkg_contents ORDER BY table_name").fetchall()
+        return out
+
+    # -- writing --------------------------------------------------------------
+    @contextmanager
+    def transaction(self) -> Iterator["GeoPackageStore"]:
+        if self._in_txn:
+            raise StoreError("nested transactions are not supported")
+        self._conn.execute("BEGIN IMMEDIATE")
+        self._in_txn = True
+        try:
+            yield self
+        except BaseException:
+            self._conn.execute("ROLLBACK")
+            raise
+        else:
+            self._conn.execute("COMMIT")
+        finally:
+            self._in_txn = False
+
+    def _execute_chunk(self, sql: str, rows: list[tuple]) -> None:
+        self._conn.executemany(sql, rows)
+
+    def upsert(self, table: str, frame: pd.DataFrame, *, geometry=None,
+               progress: Callable[[int], None] | None = None) -> WriteResult:
+        if not self._in_txn:
+            raise StoreError("upsert must run inside store.transaction()")
+        spec = self._spec(table)
+        cols = [c for c in spec.column_names if c in frame.columns]
+        missing = [c.name for c in spec.columns if c.not_null and c.name not in cols and c.default is None]
+        if missing:
+            raise ParameterError(f"rows for {table} lack column(s) {missing}")
+        arrays = [_sql_values(frame[c]) for c in cols]
+        if spec.geometry:
+            if geometry is None:
+                raise ParameterError(f"rows for {table} need geometries")
+            cols = ["geom"] + cols
+            arrays = [encode_geometries(geometry, self.srs_id)] + arrays
+        sql = f"INSERT INTO {q(table)} ({', '.join(map(q, cols))}) VALUES ({', '.join('?' * len(cols))})"
+        if spec.key:
+            changeable = [c for c in cols if c not in spec.key and c not in ("source_file", "source_row")]
+            sets = [f"{q(c)} = excluded.{q(c)}" for c in changeable + ["source_file", "source_row"]
+                    if c in cols]
+            differs = " OR ".join(f"{q(table)}.{q(c)} IS NOT excluded.{q(c)}" for c in changeable) or "0"
+            sql += (f" ON CONFLICT ({', '.join(map(q, spec.key))}) DO UPDATE SET {', '.join(sets)}"
+                    f" WHERE {differs}")
+        before = self.count(table)
+        changes0 = self._conn.total_changes
+        rows = list(zip(*arrays)) if arrays else []
+        for start in range(0, len(rows), CHUNK_ROWS):
+            chunk = rows[start:start + CHUNK_ROWS]
+            self._execute_chunk(sql, chunk)
+            if progress:
+                progress(len(chunk))
+        inserted = self.count(table) - before
+        updated = self._conn.total_changes - changes0 - inserted
+        if spec.geometry and rows:
+            self._refresh_extent(table)
+        return WriteResult(len(rows), inserted, updated)
+
+    def _refresh_extent(self, table: str) -> None:
+        blobs = [r[0] for r in self._conn.execute(f"SELECT geom FROM {q(table)}")]
+        minx, miny, maxx, maxy = shapely.total_bounds(decode_geometries(blobs))
+        self._conn.execute(
+            "UPDATE gpkg_contents SET min_x=?, min_y=?, max_x=?, max_y=?, last_change=? WHERE table_name=?",
+            (minx, miny, maxx, maxy, _now(), table))
+
+    def log_import(self, kind: str, file: str, sha256: str, result: WriteResult) -> None:
+        if not self._in_txn:
+            raise StoreError("log_import must run inside store.transaction()")
+        self._conn.execute(
+            "INSERT INTO imports (kind, file, sha256, rows, inserted, updated, imported_at) VALUES (?,?,?,?,?,?,?)",
+            (kind, file, sha256, result.rows, result.inserted, result.updated, _now()))
+        self._conn.execute("UPDATE gpkg_contents SET last_change=? WHERE table_name=?", (_now(), "imports"))
+
+    def close(self) -> None:
+        if self._conn is not None:
+            self._conn.close()
+            self._conn = None
+
+
+def _sql_values(series: pd.Series) -> list:
+    """Python values for sqlite3: NaN and missing become None, numpy scalars become builtins."""
+    if pd.api.types.is_float_dtype(series.dtype):
+        values = series.to_numpy(dtype=float)
+        out = values.tolist()
+        if np.isnan(values).any():
+            out = [None if v != v else v for v in out]
+        return out
+    if pd.api.types.is_integer_dtype(series.dtype) and not series.isna().any():
+        return series.to_numpy().tolist()
+    values = series.astype(object).where(series.notna(), None).tolist()
+    return [v.item() if isinstance(v, np.generic) else v for v in values]

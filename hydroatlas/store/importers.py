@@ -1,0 +1,490 @@
+"""Validated imports: one input file becomes rows in the store, whole or not at all.
+
+Each ``_prepare_<kind>`` function reads one file, checks every cell and every
+reference against what the store already holds, and returns the rows to
+write. Only when the whole file has passed does :func:`import_file` open a
+transaction and upsert; a failure midway rolls the whole file back.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+import shapely
+from pyproj import CRS, Transformer
+from pyproj.exceptions import CRSError
+
+from ..errors import ImportDataError, ParameterError, UnitError
+from ..quantities import K_UNITS, RATE_UNITS, normalize_unit
+from . import schema
+from .base import Store
+from .tables import Cells, read_csv_table
+
+KINDS = ("units", "wells", "picks", "zones", "ktests", "heads", "pumping", "springs", "discharge", "areas")
+
+REQUIRED = {
+    "units": ("code", "name", "rank", "role"),
+    "wells": ("well_id", "x", "y", "ground_elev"),
+    "picks": ("well_id", "unit", "top_depth", "bottom_depth"),
+    "zones": ("well_id", "zone_id", "top_depth", "bottom_depth"),
+    "ktests": ("well_id", "zone_id", "tested_on", "method", "k", "k_unit"),
+    "heads": ("well_id", "zone_id", "measured_at"),
+    "pumping": ("well_id", "rate", "rate_unit", "start"),
+    "springs": ("spring_id", "x", "y", "elev"),
+    "discharge": ("spring_id", "measured_at", "discharge", "rate_unit"),
+    "areas": ("area_id", "kind"),
+}
+OPTIONAL = {
+    "units": ("parent",),
+    "wells": ("total_depth", "kind", "name"),
+    "picks": (),
+    "zones": ("kind", "unit"),
+    "ktests": ("quality", "source", "test_id"),
+    "heads": ("head", "depth_to_water", "ref_elev", "quality"),
+    "pumping": ("zone_id", "end"),
+    "springs": ("name",),
+    "discharge": (),
+    "areas": ("unit",),
+}
+# Head given together with ref_elev - depth_to_water must agree to this, in the store's length unit.
+HEAD_CONSISTENCY_TOL = 0.01
+
+
+@dataclass(frozen=True)
+class ImportReport:
+    kind: str
+    file: str
+    rows: int
+    inserted: int
+    updated: int
+
+    @property
+    def unchanged(self) -> int:
+        return self.rows - self.inserted - self.updated
+
+    def summary(self) -> str:
+        return (f"{self.kind}: {self.rows} rows from {self.file}: {self.inserted} new, "
+                f"{self.updated} updated, {self.unchanged} unchanged")
+
+
+def import_file(store: Store, kind: str, path: str | Path, *, input_crs=None,
+                progress: Callable[[int], None] | None = None) -> ImportReport:
+    """Validate ``path`` as input of ``kind`` and write it to ``store`` in one transaction.
+
+    Parameters
+    ----------
+    store : Store
+    kind : str
+        One of :data:`KINDS`.
+    path : path-like
+        CSV file (GeoJSON or GeoPackage for ``areas``).
+    input_crs : CRS-like, optional
+        CRS of the file's coordinates when it differs from the store CRS.
+    progress : callable, optional
+        Called with the number of rows written after each chunk.
+
+    Raises
+    ------
+    ImportDataError
+        With file, row and column of the first problem; the store is unchanged.
+    """
+    if kind not in KINDS:
+        raise ParameterError(f"unknown kind {kind!r}; expected one of {', '.join(KINDS)}")
+    path = Path(path)
+    label = path.name
+    crs_in = _parse_crs(input_crs, label) if input_crs is not None else None
+    prepare = _PREPARERS[kind]
+    frame, geometry = prepare(store, path, label, crs_in)
+    digest = hashlib.sha256(path.read_bytes()).hexdigest()
+    frame["source_file"] = label
+    with store.transaction():
+        result = store.upsert(kind, frame, geometry=geometry, progress=progress)
+        store.log_import(kind, label, digest, result)
+    return ImportReport(kind, label, result.rows, result.inserted, result.updated)
+
+
+def _parse_crs(value, label) -> CRS:
+    try:
+        return CRS.from_user_input(value)
+    except CRSError:
+        raise ImportDataError(f"--input-crs {value!r} is not a CRS pyproj knows (try EPSG:NNNN)", file=label) from None
+
+
+def _read(path, label, kind) -> Cells:
+    frame = read_csv_table(path, required=REQUIRED[kind], label=label)
+    return Cells(frame, label)
+
+
+def _known(kind) -> set[str]:
+    return set(REQUIRED[kind]) | set(OPTIONAL[kind])
+
+
+def _unique(cells: Cells, keys: list[pd.Series], names: tuple[str, ...]):
+    key = pd.DataFrame({n: k.to_numpy() for n, k in zip(names, keys)})
+    dup = key.duplicated(keep="first").to_numpy()
+    if dup.any():
+        first = int(np.flatnonzero(dup)[0])
+        value = ", ".join(f"{n}={key.iloc[first][n]}" for n in names)
+        earlier = key.index[(key == key.iloc[first]).all(axis=1)][0]
+        cells.fail(dup, names[-1], f"duplicate key ({value}); it already appears in row {cells.rows[earlier]}")
+
+
+def _exists(cells: Cells, values: pd.DataFrame, known: pd.DataFrame, column: str, what: str, hint: str):
+    """Fail where a tuple of ``values`` is not among the rows of ``known``."""
+    if known.empty:
+        present = np.zeros(len(values), dtype=bool)
+    else:
+        idx = pd.MultiIndex.from_frame(known.astype(str))
+        present = pd.MultiIndex.from_frame(values.astype(str)).isin(idx)
+    missing = ~present
+    if missing.any():
+        first = int(np.flatnonzero(missing)[0])
+        shown = ", ".join(f"{c}={values.iloc[first][c]}" for c in values.columns)
+        cells.fail(missing, column, f"{what} ({shown}) is not in the store; {hint}")
+
+
+# -- coordinates ---------------------------------------------------------------
+def _coordinates(cells: Cells, store: Store, crs_in: CRS | None):
+    """x, y in the store CRS, plus the input values when they were reprojected."""
+    x = cells.number("x")
+    y = cells.number("y")
+    crs_store = store.settings.crs
+    source = crs_in or crs_store
+    _check_in_crs(cells, x, y, source)
+    if crs_in is None or crs_in == crs_store:
+        return x, y, None
+    tr = Transformer.from_crs(crs_in, crs_store, always_xy=True)
+    xs, ys = tr.transform(x, y)
+    xs, ys = np.asarray(xs, float), np.asarray(ys, float)
+    cells.fail(~np.isfinite(xs) | ~np.isfinite(ys), "x",
+               f"the point cannot be transformed from {crs_in.name} to the store CRS {crs_store.name}")
+    _check_in_crs(cells, xs, ys, crs_store)
+    return xs, ys, (x, y, crs_in.to_string())
+
+
+def _check_in_crs(cells: Cells, x, y, crs: CRS, pad_deg: float = 5.0):
+    """Refuse coordinates that are not finite or fall far outside the CRS's area of use."""
+    if crs.is_geographic:
+        lon, lat = x, y
+    else:
+        tr = Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
+        lon, lat = tr.transform(x, y)
+        lon, lat = np.asarray(lon, float), np.asarray(lat, float)
+    bad = ~np.isfinite(lon) | ~np.isfinite(lat) | (np.abs(lat) > 90) | (np.abs(lon) > 180)
+    aou = crs.area_of_use
+    if aou is not None:
+        bad |= (lat < aou.south - pad_deg) | (lat > aou.north + pad_deg)
+        if aou.west <= aou.east:  # skip longitude test for areas across the antimeridian
+            bad |= (lon < aou.west - pad_deg) | (lon > aou.east + pad_deg)
+    if not crs.is_geographic and not bad.all():
+        back = Transformer.from_crs(crs.geodetic_crs, crs, always_xy=True)
+        with np.errstate(invalid="ignore"):
+            bx, by = back.transform(np.where(bad, 0, lon), np.where(bad, 0, lat))
+            bad |= ~(np.hypot(np.asarray(bx) - x, np.asarray(by) - y) < 1.0)
+    area = (f" (its area of use is longitude {aou.west:g} to {aou.east:g}, latitude {aou.south:g} to {aou.north:g})"
+            if aou else "")
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        cells.fail(bad, "x", f"coordinates ({x[i]:g}, {y[i]:g}) are not valid in {crs.name}{area}; "
+                   "check x and y or give --input-crs")
+
+
+# -- kinds ---------------------------------------------------------------------
+def _prepare_units(store, path, label, crs_in):
+    cells = _read(path, label, "units")
+    code = cells.text("code")
+    name = cells.text("name")
+    rank_f = cells.number("rank")
+    cells.fail(rank_f != np.round(rank_f), "rank", "rank must be a whole number (1 = top unit)")
+    cells.fail(rank_f < 1, "rank", "rank must be 1 or more (1 = top unit)")
+    role = cells.choice("role", schema.UNIT_ROLES)
+    parent = cells.text("parent", required=False)
+    _unique(cells, [code], ("code",))
+    existing = store.read("units", ["code", "rank", "parent"])
+    known = set(existing["code"]) | set(code)
+    bad_parent = parent.notna().to_numpy() & ~parent.isin(known).to_numpy()
+    cells.fail(bad_parent, "parent", "parent unit is neither in this file nor in the store")
+    cells.fail((parent == code).to_numpy(), "parent", "a unit cannot be its own parent")
+    # final state: store units not in this file, plus this file
+    others = existing[~existing["code"].isin(set(code))]
+    clash = pd.Series(rank_f.astype(int)).isin(others["rank"].astype(int)).to_numpy() | \
+        pd.Series(rank_f.astype(int)).duplicated(keep="first").to_numpy()
+    cells.fail(clash, "rank", "another unit already has this rank; ranks order the units top to bottom")
+    parents = dict(zip(others["code"], others["parent"]))
+    parents.update(zip(code, parent))
+    for i, start in enumerate(code):
+        seen, node = set(), start
+        while node is not None and isinstance(node, str):
+            if node in seen:
+                cells.fail(np.arange(len(code)) == i, "parent", f"parent links of unit {start} form a cycle")
+            seen.add(node)
+            node = parents.get(node)
+    frame = pd.DataFrame({"code": code, "name": name, "rank": rank_f.astype(int), "role": role,
+                          "parent": parent, "attrs": cells.attrs(_known("units")),
+                          "source_row": cells.rows})
+    return frame, None
+
+
+def _prepare_wells(store, path, label, crs_in):
+    cells = _read(path, label, "wells")
+    well_id = cells.text("well_id")
+    ground = cells.number("ground_elev")
+    total = cells.number("total_depth", required=False, positive=True)
+    kind = cells.choice("kind", schema.WELL_KINDS, required=False)
+    name = cells.text("name", required=False)
+    _unique(cells, [well_id], ("well_id",))
+    x, y, original = _coordinates(cells, store, crs_in)
+    zones = store.read("zones", ["well_id", "zone_id", "bottom_depth"])
+    if not zones.empty:
+        deepest = zones.groupby("well_id")["bottom_depth"].max()
+        limit = well_id.map(deepest).to_numpy(dtype=float)
+        cells.fail(np.isfinite(total) & (limit > total), "total_depth",
+                   "total_depth is shallower than a zone already stored for this well")
+    frame = pd.DataFrame({"well_id": well_id, "x": x, "y": y, "ground_elev": ground, "total_depth": total,
+                          "kind": kind, "name": name, "attrs": cells.attrs(_known("wells")),
+                          "source_row": cells.rows})
+    if original is not None:
+        frame["x_input"], frame["y_input"], frame["input_crs"] = original
+    else:
+        frame["x_input"], frame["y_input"], frame["input_crs"] = np.nan, np.nan, None
+    return frame, shapely.points(x, y)
+
+
+def _depth_pair(cells: Cells):
+    top = cells.number("top_depth", nonnegative=True)
+    bottom = cells.number("bottom_depth")
+    cells.fail(bottom <= top, "bottom_depth", "bottom_depth must be greater than top_depth (depths grow downward)")
+    return top, bottom
+
+
+def _prepare_picks(store, path, label, crs_in):
+    cells = _read(path, label, "picks")
+    well_id = cells.text("well_id")
+    unit = cells.text("unit")
+    top, bottom = _depth_pair(cells)
+    _unique(cells, [well_id, unit], ("well_id", "unit"))
+    _exists(cells, pd.DataFrame({"well_id": well_id}), store.read("wells", ["well_id"]), "well_id",
+            "well", "import it in a wells file first")
+    _exists(cells, pd.DataFrame({"unit": unit}), store.read("units", ["code"]).rename(columns={"code": "unit"}),
+            "unit", "unit", "import it in a units file first")
+    frame = pd.DataFrame({"well_id": well_id, "unit": unit, "top_depth": top, "bottom_depth": bottom,
+                          "attrs": cells.attrs(_known("picks")), "source_row": cells.rows})
+    return frame, None
+
+
+def _prepare_zones(store, path, label, crs_in):
+    cells = _read(path, label, "zones")
+    well_id = cells.text("well_id")
+    zone_id = cells.text("zone_id")
+    top, bottom = _depth_pair(cells)
+    kind = cells.choice("kind", schema.ZONE_KINDS, required=False, aliases={"open hole": "open_hole"})
+    unit = cells.text("unit", required=False)
+    _unique(cells, [well_id, zone_id], ("well_id", "zone_id"))
+    wells = store.read("wells", ["well_id", "total_depth"])
+    _exists(cells, pd.DataFrame({"well_id": well_id}), wells[["well_id"]], "well_id", "well",
+            "import it in a wells file first")
+    units = store.read("units", ["code"])
+    has_unit = unit.notna().to_numpy()
+    cells.fail(has_unit & ~unit.isin(set(units["code"])).to_numpy(), "unit",
+               "override unit is not in the store; import it in a units file first")
+    total = well_id.map(wells.set_index("well_id")["total_depth"]).to_numpy(dtype=float)
+    cells.fail(np.isfinite(total) & (bottom > total), "bottom_depth",
+               "the zone reaches below the well's total_depth")
+    frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "top_depth": top, "bottom_depth": bottom,
+                          "kind": kind, "unit": unit, "attrs": cells.attrs(_known("zones")),
+                          "source_row": cells.rows})
+    return frame, None
+
+
+def _zone_refs(cells: Cells, store, well_id, zone_id):
+    wells = store.read("wells", ["well_id"])
+    _exists(cells, pd.DataFrame({"well_id": well_id}), wells, "well_id", "well", "import it in a wells file first")
+    _exists(cells, pd.DataFrame({"well_id": well_id, "zone_id": zone_id}),
+            store.read("zones", ["well_id", "zone_id"]), "zone_id", "zone", "import it in a zones file first")
+
+
+def _unit_labels(cells: Cells, column: str, table: dict, quantity: str) -> pd.Series:
+    raw = cells.text(column)
+    out = {}
+    for value in pd.unique(raw):
+        try:
+            out[value] = normalize_unit(value, quantity)
+        except UnitError:
+            cells.fail((raw == value).to_numpy(), column,
+                       f"unknown {quantity} unit {value!r}; expected one of {', '.join(table)}")
+    return raw.map(out)
+
+
+def _prepare_ktests(store, path, label, crs_in):
+    cells = _read(path, label, "ktests")
+    well_id = cells.text("well_id")
+    zone_id = cells.text("zone_id")
+    tested_on = cells.timestamp("tested_on", date_only=True)
+    method = cells.choice("method", schema.KTEST_METHODS, aliases={"specific capacity": "specific_capacity"})
+    k = cells.number("k")
+    cells.fail(k <= 0, "k", "hydraulic conductivity must be greater than zero")
+    k_unit = _unit_labels(cells, "k_unit", K_UNITS, "hydraulic conductivity")
+    quality = cells.choice("quality", schema.QUALITIES, required=False)
+    source = cells.text("source", required=False)
+    if cells.has("test_id"):
+        test_id = cells.text("test_id")
+    else:
+        # No test_id: the test is named by its content, so a re-import matches it
+        # and two different tests of one zone on one day never overwrite each other.
+        test_id = tested_on.astype(str) + "|" + method.astype(str) + "|" + cells.frame["k"] + "|" + k_unit.astype(str)
+    _unique(cells, [well_id, zone_id, test_id], ("well_id", "zone_id", "test_id"))
+    _zone_refs(cells, store, well_id, zone_id)
+    factors = k_unit.map(K_UNITS).to_numpy(dtype=float)
+    frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "test_id": test_id, "tested_on": tested_on,
+                          "method": method, "k": k, "k_unit": k_unit, "k_ms": k * factors,
+                          "quality": quality, "source": source, "attrs": cells.attrs(_known("ktests")),
+                          "source_row": cells.rows})
+    return frame, None
+
+
+def _prepare_heads(store, path, label, crs_in):
+    cells = _read(path, label, "heads")
+    if not cells.has("head") and not (cells.has("depth_to_water") and cells.has("ref_elev")):
+        raise ImportDataError("missing column head (or both depth_to_water and ref_elev)",
+                              file=label, row=0, column="head")
+    well_id = cells.text("well_id")
+    zone_id = cells.text("zone_id")
+    measured_at = cells.timestamp("measured_at")
+    head = cells.number("head", required=False)
+    dtw = cells.number("depth_to_water", required=False)
+    ref = cells.number("ref_elev", required=False)
+    derived = ref - dtw
+    no_head = np.isnan(head)
+    cells.fail(no_head & np.isnan(dtw), "head" if cells.has("head") else "depth_to_water",
+               "no head: give head, or depth_to_water with ref_elev")
+    cells.fail(no_head & np.isnan(ref), "ref_elev", "depth_to_water needs ref_elev to give a head")
+    both = ~no_head & np.isfinite(derived)
+    cells.fail(both & (np.abs(head - derived) > HEAD_CONSISTENCY_TOL), "head",
+               "head disagrees with ref_elev - depth_to_water")
+    head = np.where(no_head, derived, head)
+    quality = cells.choice("quality", schema.QUALITIES, required=False)
+    _unique(cells, [well_id, zone_id, measured_at], ("well_id", "zone_id", "measured_at"))
+    _zone_refs(cells, store, well_id, zone_id)
+    frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "measured_at": measured_at, "head": head,
+                          "depth_to_water": dtw, "ref_elev": ref, "quality": quality,
+                          "attrs": cells.attrs(_known("heads")), "source_row": cells.rows})
+    return frame, None
+
+
+def _prepare_pumping(store, path, label, crs_in):
+    cells = _read(path, label, "pumping")
+    well_id = cells.text("well_id")
+    zone_id = cells.text("zone_id", required=False, default="")
+    rate = cells.number("rate", nonnegative=True)
+    rate_unit = _unit_labels(cells, "rate_unit", RATE_UNITS, "rate")
+    start = cells.timestamp("start")
+    end = cells.timestamp("end", required=False)
+    later = end.notna().to_numpy()
+    cells.fail(later & (end.astype(str) < start.astype(str)).to_numpy(), "end", "end is before start")
+    _unique(cells, [well_id, zone_id, start], ("well_id", "zone_id", "start"))
+    _exists(cells, pd.DataFrame({"well_id": well_id}), store.read("wells", ["well_id"]), "well_id", "well",
+            "import it in a wells file first")
+    with_zone = (zone_id != "").to_numpy()
+    if with_zone.any():
+        zones = store.read("zones", ["well_id", "zone_id"])
+        pairs = pd.MultiIndex.from_arrays([well_id, zone_id])
+        ok = pairs.isin(pd.MultiIndex.from_frame(zones)) if not zones.empty else np.zeros(len(pairs), bool)
+        cells.fail(with_zone & ~ok, "zone_id", "zone is not in the store; import it in a zones file first")
+    frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "start": start, "end": end, "rate": rate,
+                          "rate_unit": rate_unit, "rate_m3d": rate * rate_unit.map(RATE_UNITS).to_numpy(float),
+                          "attrs": cells.attrs(_known("pumping")), "source_row": cells.rows})
+    return frame, None
+
+
+def _prepare_springs(store, path, label, crs_in):
+    cells = _read(path, label, "springs")
+    spring_id = cells.text("spring_id")
+    elev = cells.number("elev")
+    name = cells.text("name", required=False)
+    _unique(cells, [spring_id], ("spring_id",))
+    x, y, original = _coordinates(cells, store, crs_in)
+    frame = pd.DataFrame({"spring_id": spring_id, "x": x, "y": y, "elev": elev, "name": name,
+                          "attrs": cells.attrs(_known("springs")), "source_row": cells.rows})
+    if original is not None:
+        frame["x_input"], frame["y_input"], frame["input_crs"] = original
+    else:
+        frame["x_input"], frame["y_input"], frame["input_crs"] = np.nan, np.nan, None
+    return frame, shapely.points(x, y)
+
+
+def _prepare_discharge(store, path, label, crs_in):
+    cells = _read(path, label, "discharge")
+    spring_id = cells.text("spring_id")
+    measured_at = cells.timestamp("measured_at")
+    q = cells.number("discharge", nonnegative=True)
+    unit = _unit_labels(cells, "rate_unit", RATE_UNITS, "rate")
+    _unique(cells, [spring_id, measured_at], ("spring_id", "measured_at"))
+    _exists(cells, pd.DataFrame({"spring_id": spring_id}), store.read("springs", ["spring_id"]), "spring_id",
+            "spring", "import it in a springs file first")
+    frame = pd.DataFrame({"spring_id": spring_id, "measured_at": measured_at, "discharge": q, "rate_unit": unit,
+                          "discharge_m3d": q * unit.map(RATE_UNITS).to_numpy(float),
+                          "attrs": cells.attrs(_known("discharge")), "source_row": cells.rows})
+    return frame, None
+
+
+def _prepare_areas(store, path, label, crs_in):
+    import json
+
+    import pyogrio
+
+    if not path.is_file():
+        raise ImportDataError("file not found", file=label)
+    if path.stat().st_size == 0:
+        raise ImportDataError("the file is empty; a GeoJSON or GeoPackage polygon file is expected", file=label)
+    try:
+        gdf = pyogrio.read_dataframe(path)
+    except Exception as exc:  # pyogrio raises several GDAL error classes
+        raise ImportDataError(f"cannot read polygons ({str(exc).splitlines()[0]}); a GeoJSON or GeoPackage "
+                              "polygon file is expected", file=label) from None
+    if gdf.empty:
+        raise ImportDataError("the file has no features", file=label)
+    missing = [c for c in REQUIRED["areas"] if c not in gdf.columns]
+    if missing:
+        raise ImportDataError(f"missing required field(s) {', '.join(missing)}", file=label, row=0,
+                              column=missing[0])
+    text = pd.DataFrame({c: gdf[c].map(lambda v: "" if v is None or (isinstance(v, float) and np.isnan(v))
+                                       else str(v)).str.strip()
+                         for c in gdf.columns if c != "geometry"})
+    text["source_row"] = np.arange(1, len(gdf) + 1)
+    cells = Cells(text, label)
+    area_id = cells.text("area_id")
+    kind = cells.choice("kind", schema.AREA_KINDS)
+    unit = cells.text("unit", required=False)
+    _unique(cells, [area_id], ("area_id",))
+    units = set(store.read("units", ["code"])["code"])
+    cells.fail(unit.notna().to_numpy() & ~unit.isin(units).to_numpy(), "unit",
+               "unit is not in the store; import it in a units file first")
+    geoms = np.asarray(gdf.geometry.values, dtype=object)
+    types = shapely.get_type_id(geoms)
+    cells.fail(~np.isin(types, [3, 6]), "geometry", "the feature is not a polygon or multipolygon")
+    cells.fail(~shapely.is_valid(geoms), "geometry", "the polygon is not valid (self-intersecting or degenerate)")
+    file_crs = gdf.crs
+    source = crs_in or (CRS.from_user_input(file_crs) if file_crs is not None else None)
+    if source is None:
+        raise ImportDataError("the file has no CRS; give --input-crs", file=label)
+    coords = shapely.get_coordinates(geoms)
+    owner = np.repeat(np.arange(len(geoms)), shapely.get_num_coordinates(geoms))
+    probe = Cells(pd.DataFrame({"source_row": cells.rows[owner]}), label)
+    _check_in_crs(probe, coords[:, 0], coords[:, 1], source)  # raises naming the feature row
+    if source != store.settings.crs:
+        tr = Transformer.from_crs(source, store.settings.crs, always_xy=True)
+        geoms = shapely.transform(geoms, lambda xy: np.column_stack(tr.transform(xy[:, 0], xy[:, 1])))
+    geoms = np.array([g if shapely.get_type_id(g) == 6 else shapely.multipolygons([g]) for g in geoms], dtype=object)
+    extra = [c for c in gdf.columns if c not in _known("areas") and c != "geometry"]
+    attrs = [json.dumps({c: text.iloc[i][c] for c in extra}, ensure_ascii=False) if extra else None
+             for i in range(len(gdf))]
+    frame = pd.DataFrame({"area_id": area_id, "kind": kind, "unit": unit, "attrs": attrs, "source_row": cells.rows})
+    return frame, geoms
+
+
+_PREPARERS = {kind: globals()[f"_prepare_{kind}"] for kind in KINDS}

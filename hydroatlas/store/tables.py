@@ -1,0 +1,178 @@
+"""Reading input tables (CSV) into string columns, with errors that name file, row and column.
+
+Rows are numbered from 1 for the first data row; the file line is row + 1.
+Every value is read as text first so that each conversion can say exactly
+which cell it could not read.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..errors import ImportDataError
+
+
+def read_csv_table(path: str | Path, *, required: tuple[str, ...], label: str | None = None) -> pd.DataFrame:
+    """Read a comma-separated UTF-8 file with a header row into a frame of stripped strings.
+
+    The returned frame has a ``source_row`` column (1-based data row).
+    """
+    path = Path(path)
+    name = label or path.name
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise ImportDataError("file not found", file=name) from None
+    except OSError as exc:
+        raise ImportDataError(f"cannot read the file ({exc.strerror})", file=name) from None
+    if not raw.strip():
+        raise ImportDataError("the file is empty; a header row and at least one data row are expected", file=name)
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = raw[:exc.start].count(b"\n") + 1
+        raise ImportDataError(
+            f"byte {exc.start} is not valid UTF-8 (0x{raw[exc.start]:02x}); save the file as UTF-8",
+            file=name, row=line - 1 if line > 1 else None) from None
+    header_line = text.splitlines()[0]
+    if "," not in header_line:
+        for delim, word in ((";", "semicolon"), ("\t", "tab"), ("|", "pipe")):
+            if delim in header_line:
+                raise ImportDataError(
+                    f"the file is {word}-delimited; hydroatlas reads comma-separated files "
+                    "(re-save it as CSV with commas)", file=name, row=0)
+    try:
+        frame = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False, na_filter=False,
+                            skip_blank_lines=True, quoting=csv.QUOTE_MINIMAL)
+    except pd.errors.ParserError as exc:
+        msg = str(exc)
+        line = _line_from_parser_message(msg)
+        raise ImportDataError(f"cannot parse the row ({msg.strip()})", file=name,
+                              row=line - 1 if line else None) from None
+    except pd.errors.EmptyDataError:
+        raise ImportDataError("the file is empty; a header row is expected", file=name) from None
+    columns = [str(c).strip() for c in frame.columns]
+    dupes = sorted({c for c in columns if columns.count(c) > 1})
+    if dupes:
+        raise ImportDataError(f"the header repeats column(s) {', '.join(dupes)}", file=name, row=0)
+    blank = [i for i, c in enumerate(columns) if not c or c.startswith("Unnamed:")]
+    if blank:
+        raise ImportDataError(f"header column {blank[0] + 1} has no name", file=name, row=0)
+    frame.columns = columns
+    missing = [c for c in required if c not in columns]
+    if missing:
+        raise ImportDataError(
+            f"missing required column(s) {', '.join(missing)}; the header has {', '.join(columns)}",
+            file=name, row=0, column=missing[0])
+    if frame.empty:
+        raise ImportDataError("the file has a header but no data rows", file=name)
+    for c in frame.columns:
+        frame[c] = frame[c].str.strip()
+    frame["source_row"] = np.arange(1, len(frame) + 1)
+    return frame
+
+
+def _line_from_parser_message(msg: str) -> int | None:
+    import re
+
+    m = re.search(r"line (\d+)", msg)
+    return int(m.group(1)) if m else None
+
+
+class Cells:
+    """Typed access to the string columns of one input file, raising on the first bad cell."""
+
+    def __init__(self, frame: pd.DataFrame, file: str):
+        self.frame = frame
+        self.file = file
+        self.rows = frame["source_row"].to_numpy()
+
+    def fail(self, mask, column: str | None, message: str):
+        """Raise ImportDataError at the first row where ``mask`` is true (if any)."""
+        mask = np.asarray(mask, dtype=bool)
+        if mask.any():
+            first = int(np.flatnonzero(mask)[0])
+            more = int(mask.sum()) - 1
+            extra = f" ({more} more row{'s' if more != 1 else ''} like this)" if more else ""
+            raise ImportDataError(message + extra, file=self.file, row=int(self.rows[first]), column=column)
+
+    def has(self, column: str) -> bool:
+        return column in self.frame.columns
+
+    def text(self, column: str, *, required: bool = True, default: str | None = None) -> pd.Series:
+        if column not in self.frame.columns:
+            return pd.Series([default] * len(self.frame), index=self.frame.index, dtype=object)
+        values = self.frame[column]
+        empty = (values == "").to_numpy()
+        if required:
+            self.fail(empty, column, "empty value; this column is required")
+        return values.astype(object).where(~empty, default)
+
+    def number(self, column: str, *, required: bool = True, positive: bool = False,
+               nonnegative: bool = False) -> np.ndarray:
+        if column not in self.frame.columns:
+            return np.full(len(self.frame), np.nan)
+        raw = self.frame[column]
+        empty = (raw == "").to_numpy()
+        if required:
+            self.fail(empty, column, "empty value; a number is required")
+        values = pd.to_numeric(raw.where(~empty, None), errors="coerce").to_numpy(dtype=float)
+        bad_text = np.isnan(values) & ~empty
+        if bad_text.any():
+            first = int(np.flatnonzero(bad_text)[0])
+            self.fail(bad_text, column, f"{raw.iloc[first]!r} is not a number")
+        self.fail(np.isinf(values), column, "the value is not finite")
+        if positive:
+            self.fail(values <= 0, column, "the value must be greater than zero")
+        if nonnegative:
+            self.fail(values < 0, column, "the value must not be negative")
+        return values
+
+    def choice(self, column: str, allowed: tuple[str, ...], *, required: bool = True,
+               default: str | None = None, aliases: dict[str, str] | None = None) -> pd.Series:
+        values = self.text(column, required=required, default=default)
+        lowered = values.where(values.isna(), values.astype(str).str.lower()) if len(values) else values
+        if aliases:
+            lowered = lowered.replace(aliases)
+        present = lowered.notna().to_numpy()
+        bad = present & ~lowered.isin(allowed).to_numpy()
+        if bad.any():
+            first = int(np.flatnonzero(bad)[0])
+            self.fail(bad, column, f"{values.iloc[first]!r} is not one of {', '.join(allowed)}")
+        return lowered
+
+    def timestamp(self, column: str, *, required: bool = True, date_only: bool = False) -> pd.Series:
+        """ISO 8601 text, normalised to 'YYYY-MM-DDTHH:MM:SS' (or 'YYYY-MM-DD'); offsets go to UTC."""
+        values = self.text(column, required=required)
+        present = values.notna().to_numpy()
+        out = pd.Series([None] * len(values), index=values.index, dtype=object)
+        if not present.any():
+            return out
+        sub = values[present].astype(str)
+        parsed = pd.to_datetime(sub, format="ISO8601", errors="coerce", utc=True)
+        bad = parsed.isna().to_numpy()
+        if bad.any():
+            mask = np.zeros(len(values), dtype=bool)
+            mask[np.flatnonzero(present)[bad]] = True
+            first = int(np.flatnonzero(bad)[0])
+            self.fail(mask, column, f"{sub.iloc[first]!r} is not an ISO 8601 date or time (YYYY-MM-DD[THH:MM[:SS]])")
+        stamps = parsed.dt.tz_localize(None).to_numpy().astype("datetime64[s]")
+        text = np.datetime_as_string(stamps, unit="D" if date_only else "s")
+        out[present] = text
+        return out
+
+    def attrs(self, known: set[str]) -> pd.Series:
+        """Extra columns as a JSON object per row (None where there are none)."""
+        import json
+
+        extra = [c for c in self.frame.columns if c not in known and c != "source_row"]
+        if not extra:
+            return pd.Series([None] * len(self.frame), index=self.frame.index, dtype=object)
+        sub = self.frame[extra]
+        return pd.Series([json.dumps(dict(zip(extra, row)), ensure_ascii=False)
+                          for row in sub.itertuples(index=False, name=None)], index=self.frame.index, dtype=object)
