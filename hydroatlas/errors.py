@@ -64,7 +64,9 @@ class ImportDataError(HydroatlasError, ValueError):
         where = []
         if self.file is not None:
             where.append(str(self.file))
-        if self.row is not None:
+        if self.row == 0:
+            where.append("header (line 1)")
+        elif self.row is not None:
             where.append(f"row {self.row} (line {self.row + 1})")
         if self.column is not None:
             where.append(f"column '{self.column}'")

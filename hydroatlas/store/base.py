@@ -9,6 +9,7 @@ from typing import Callable, Iterator
 
 import pandas as pd
 from pyproj import CRS
+from pyproj.exceptions import CRSError
 
 from ..errors import ParameterError
 from ..quantities import normalize_unit
@@ -33,7 +34,10 @@ class StoreSettings:
     vertical_datum: str = "unspecified"
 
     def __post_init__(self):
-        object.__setattr__(self, "crs", CRS.from_user_input(self.crs))
+        try:
+            object.__setattr__(self, "crs", CRS.from_user_input(self.crs))
+        except CRSError:
+            raise ParameterError(f"{self.crs!r} is not a CRS that pyproj knows (try EPSG:NNNN)") from None
         object.__setattr__(self, "length_unit", normalize_unit(self.length_unit, "length"))
         if not self.crs.is_projected and not self.crs.is_geographic:
             raise ParameterError(f"the store CRS must be a projected or geographic 2-D CRS, got {self.crs.name}")
