@@ -223,19 +223,23 @@ def phase_import(store_path: str, kind: str, csv_path: str) -> dict:
             "inserted": report.inserted, "updated": report.updated}
 
 
-def phase_profile_import(store_path: str, kind: str, csv_path: str, top: int) -> str:
-    """cProfile one import; return the hottest hydroatlas functions by cumulative time."""
+def phase_profile(store_path: str, what: str, csv_path: str | None, top: int) -> str:
+    """cProfile one import (or ``unit_stats``); return the top functions by cumulative time."""
     import cProfile
     import io
     import pstats
 
+    from hydroatlas import workflows
     from hydroatlas.store import open_store
     from hydroatlas.store.importers import import_file
 
     store = open_store(store_path)
     prof = cProfile.Profile()
     prof.enable()
-    import_file(store, kind, csv_path)
+    if what == "unit_stats":
+        workflows.unit_stats(store, k_unit="m/d")
+    else:
+        import_file(store, what, csv_path)
     prof.disable()
     store.close()
     out = io.StringIO()
@@ -254,10 +258,15 @@ def phase_unit_stats(store_path: str) -> dict:
     t0 = time.perf_counter()
     rows = workflows.unit_stats(store, k_unit="m/d")
     seconds = time.perf_counter() - t0
+    peak = _peak_mb()
+    t0 = time.perf_counter()
+    workflows.unit_stats(store, k_unit="m/d")
+    second = time.perf_counter() - t0
     n = store.count("ktests")
     store.close()
     summary = [{"unit": r["unit"], "n_tests": r["n_tests"], "k_geomean": r["k_geomean"]} for r in rows]
-    return {"seconds": seconds, "peak_mb": _peak_mb(), "baseline_mb": base, "rows": n, "units": summary}
+    return {"seconds": seconds, "second_call_seconds": second, "peak_mb": peak, "baseline_mb": base,
+            "rows": n, "units": summary}
 
 
 # -- 4. raw sqlite3 reference (child process) ----------------------------------
@@ -366,10 +375,14 @@ def main(argv=None) -> int:
     ap.add_argument("--seed", type=int, default=20240115)
     ap.add_argument("--json", metavar="FILE", help="write every figure to this JSON file")
     ap.add_argument("--workdir", metavar="DIR", help="keep inputs and stores in DIR (default: a temp dir, removed)")
-    ap.add_argument("--profile", metavar="KIND", choices=KINDS,
-                    help="also cProfile the import of KIND (in a second store) and print the hot spots")
+    ap.add_argument("--repeat", type=int, default=3,
+                    help="raw sqlite3 reference runs per table; the median is used (default 3)")
+    ap.add_argument("--profile", metavar="WHAT", action="append", choices=KINDS + ("unit_stats",), default=[],
+                    help="also cProfile the import of WHAT (a kind, in a second store) or unit_stats, "
+                         "after the measured run, and print the top functions; may be repeated")
+    ap.add_argument("--profile-top", type=int, default=40, help="functions shown per profile (default 40)")
     args = ap.parse_args(argv)
-    for name in ("heads", "tests", "wells"):
+    for name in ("heads", "tests", "wells", "repeat"):
         if getattr(args, name) < 1:
             ap.error(f"--{name} must be at least 1")
 
@@ -417,23 +430,40 @@ def main(argv=None) -> int:
                 f"(baseline {r['baseline_mb']:.0f} MB)")
         res["unit_stats"] = _run_isolated(phase_unit_stats, store_path)
         say(f"unit_stats over {res['unit_stats']['rows']:,} K tests: {res['unit_stats']['seconds']:.3f} s "
-            "(" + ", ".join(f"{u['unit']}: n={u['n_tests']}" for u in res["unit_stats"]["units"]) + ")")
+            f"(second call {res['unit_stats']['second_call_seconds']:.3f} s); tests per unit: "
+            + ", ".join(f"{u['unit']} {u['n_tests']:,}" for u in res["unit_stats"]["units"]))
         res["raw"] = {}
         for kind in ("ktests", "heads"):
-            r = _run_isolated(phase_raw, str(work / f"raw_{kind}.sqlite"), kind, inputs["files"][kind])
+            runs = []
+            for rep in range(args.repeat):
+                db = work / f"raw_{kind}.sqlite"
+                db.unlink(missing_ok=True)
+                runs.append(_run_isolated(phase_raw, str(db), kind, inputs["files"][kind]))
+                db.unlink(missing_ok=True)
+            # median run by total time; it supplies both raw figures
+            runs.sort(key=lambda r: r["total_seconds"])
+            r = dict(runs[len(runs) // 2])
+            r["runs"] = runs
             res["raw"][kind] = r
             say(f"raw sqlite3 {kind}: csv read {r['csv_seconds']:.3f} s + executemany "
-                f"{r['executemany_seconds']:.3f} s for {r['rows']:,} rows")
+                f"{r['executemany_seconds']:.3f} s for {r['rows']:,} rows (median of {len(runs)}; totals "
+                + ", ".join(f"{x['total_seconds']:.3f}" for x in runs) + " s)")
         res["table"] = build_table(res)
-        if args.profile:
-            prof_store = str(work / "profile.gpkg")
-            _run_isolated(phase_create, prof_store)
-            needed = KINDS[:KINDS.index(args.profile)]
-            for kind in needed:
-                _run_isolated(phase_import, prof_store, kind, inputs["files"][kind])
-            res["profile"] = _run_isolated(phase_profile_import, prof_store, args.profile,
-                                           inputs["files"][args.profile], 40)
-            say(f"\ncProfile of import {args.profile} (cumulative):\n{res['profile']}")
+        res["profile"] = {}
+        for what in args.profile:
+            if what == "unit_stats":
+                text = _run_isolated(phase_profile, store_path, what, None, args.profile_top)
+            else:
+                # a second store holding everything imported before WHAT
+                prof_store = work / "profile.gpkg"
+                prof_store.unlink(missing_ok=True)
+                _run_isolated(phase_create, str(prof_store))
+                for kind in KINDS[:KINDS.index(what)]:
+                    _run_isolated(phase_import, str(prof_store), kind, inputs["files"][kind])
+                text = _run_isolated(phase_profile, str(prof_store), what, inputs["files"][what],
+                                     args.profile_top)
+            res["profile"][what] = text
+            say(f"\ncProfile of {'import ' if what != 'unit_stats' else ''}{what} (cumulative):\n{text}")
         say("")
         say(format_table(res["table"]))
         checks = [ln["ok"] for ln in res["table"] if "ok" in ln]
