@@ -12,8 +12,10 @@ on the same machine at the same time:
    invented; coordinates are in EPSG:32616 metres.
 2. Creates a store and imports the six files in order through the public
    API (``create_store`` + ``import_file``), with full validation. Each
-   import runs in its own freshly spawned process so that its peak RSS
-   (``getrusage(RUSAGE_SELF).ru_maxrss``) is not polluted by earlier phases.
+   import runs in its own freshly spawned process so that its peak RSS is
+   not polluted by earlier phases (Linux: ``VmHWM`` of /proc/self/status,
+   see :func:`_peak_mb` for why not ``ru_maxrss``; elsewhere ``ru_maxrss``).
+   Only the ``import_file`` call is timed (not process start or imports).
 3. Times ``workflows.unit_stats(store, k_unit="m/d")`` over all K tests, in
    its own process.
 4. Reference: a raw ``sqlite3`` ``executemany`` of the same K-test and head
@@ -22,6 +24,10 @@ on the same machine at the same time:
    "csv read + executemany" and "executemany alone" are timed.
 5. Prints a table of phase, rows, seconds, rows/s, peak MB, ratio, target and
    pass/fail, and optionally writes every figure to ``--json FILE``.
+
+The raw reference is run ``--repeat`` times (default 3) per table, each in a
+fresh process and file, and the median run is used. Peak MB figures include
+the interpreter and its libraries (the "baseline" printed per import).
 
 Targets: validated import speed no less than 1/3 of raw sqlite3 speed
 (for both definitions of raw), import peak RSS under 1 GB (1000 MB, decimal),

@@ -31,20 +31,16 @@ def unit_ancestors(units: pd.DataFrame) -> dict[str, list[str]]:
 
 def finest_picks(picks: pd.DataFrame, units: pd.DataFrame) -> pd.DataFrame:
     """Drop a parent unit's pick in a well where picks of its sub-units exist."""
-    if picks.empty:
+    if picks.empty or units["parent"].isna().all():
         return picks
-    ancestors = unit_ancestors(units)
-    drop = set()
-    for well, group in picks.groupby("well_id"):
-        present = set(group["unit"])
-        for code in present:
-            for anc in ancestors.get(code, []):
-                if anc in present:
-                    drop.add((well, anc))
-    if not drop:
+    pairs = [(code, anc) for code, chain in unit_ancestors(units).items() for anc in chain]
+    if not pairs:
         return picks
-    key = list(zip(picks["well_id"], picks["unit"]))
-    return picks[[k not in drop for k in key]]
+    links = pd.DataFrame(pairs, columns=["unit", "ancestor"])
+    covered = picks[["well_id", "unit"]].merge(links, on="unit")[["well_id", "ancestor"]].drop_duplicates()
+    flag = picks[["well_id", "unit"]].merge(covered, left_on=["well_id", "unit"], right_on=["well_id", "ancestor"],
+                                           how="left", indicator=True)["_merge"].eq("both").to_numpy()
+    return picks[~flag]
 
 
 def infer_picks(wells: pd.DataFrame, picks: pd.DataFrame, units: pd.DataFrame, *,
@@ -145,8 +141,13 @@ def assign_zones(zones: pd.DataFrame, picks: pd.DataFrame, wells: pd.DataFrame, 
         "inferred": best["inferred"],
         "n_units": grouped.size(),
         "coverage": grouped["overlap"].sum() / grouped["thickness"].first(),
-        "units_crossed": m.sort_values("rank").groupby(["well_id", "zone_id"])["unit"].agg(",".join),
     })
+    # the list of crossed units is only built for the (few) zones that cross more than one
+    multi = m[m.set_index(["well_id", "zone_id"]).index.isin(summary.index[summary["n_units"] > 1])]
+    summary["units_crossed"] = summary["picked_unit"]
+    if not multi.empty:
+        crossed = multi.sort_values("rank").groupby(["well_id", "zone_id"])["unit"].agg(",".join)
+        summary.loc[crossed.index, "units_crossed"] = crossed
     out = z.merge(summary, left_on=["well_id", "zone_id"], right_index=True, how="left")
     override = out["unit"].notna() if "unit" in out else pd.Series(False, index=out.index)
     out["override_unit"] = out["unit"] if "unit" in out else None

@@ -1,5 +1,10 @@
-"""Spatial interpolation: the numeric core takes and returns numpy arrays."""
+"""Spatial interpolation: the numeric core takes and returns numpy arrays.
+
+>>> from hydroatlas.interp import Variogram, OrdinaryKriging, UniversalKriging, IDW
+"""
 
 from .idw import IDW
+from .kriging import OrdinaryKriging, UniversalKriging
+from .variogram import ExperimentalVariogram, Variogram
 
-__all__ = ["IDW"]
+__all__ = ["IDW", "OrdinaryKriging", "UniversalKriging", "Variogram", "ExperimentalVariogram"]

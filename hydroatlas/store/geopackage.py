@@ -300,7 +300,16 @@ class GeoPackageStore(Store):
                 raise ParameterError(f"rows for {table} need geometries")
             cols = ["geom"] + cols
             arrays = [encode_geometries(geometry, self.srs_id)] + arrays
-        sql = f"INSERT INTO {q(table)} ({', '.join(map(q, cols))}) VALUES ({', '.join('?' * len(cols))})"
+        # Columns holding one value in every row are written as SQL literals: binding
+        # them per row is most of the cost of a large insert.
+        slots, bound = [], []
+        for name, values in zip(cols, arrays):
+            literal = _constant_literal(values)
+            slots.append(literal if literal is not None else "?")
+            if literal is None:
+                bound.append(values)
+        arrays = bound
+        sql = f"INSERT INTO {q(table)} ({', '.join(map(q, cols))}) VALUES ({', '.join(slots)})"
         if spec.key:
             changeable = [c for c in cols if c not in spec.key and c not in ("source_file", "source_row")]
             sets = [f"{q(c)} = excluded.{q(c)}" for c in changeable + ["source_file", "source_row"]
@@ -343,6 +352,29 @@ class GeoPackageStore(Store):
             self._conn = None
 
 
+def _constant_literal(values: list) -> str | None:
+    """SQL literal of a column whose values are all equal (None, int, float or str), else None."""
+    if len(values) < 2:
+        return None
+    first = values[0]
+    if first is not None and not isinstance(first, (str, int, float)) or isinstance(first, bool):
+        return None
+    if isinstance(first, float) and first != first:
+        return None
+    try:
+        if values.count(first) != len(values):
+            return None
+    except TypeError:
+        return None
+    if first is None:
+        return "NULL"
+    if isinstance(first, str):
+        return "'" + first.replace("'", "''") + "'"
+    if type(first) is int or (isinstance(first, float) and np.isfinite(first)):
+        return repr(first)
+    return None
+
+
 def _sql_values(series: pd.Series) -> list:
     """Python values for sqlite3: NaN and missing become None, numpy scalars become builtins."""
     if pd.api.types.is_float_dtype(series.dtype):
@@ -353,5 +385,7 @@ def _sql_values(series: pd.Series) -> list:
         return out
     if pd.api.types.is_integer_dtype(series.dtype) and not series.isna().any():
         return series.to_numpy().tolist()
-    values = series.astype(object).where(series.notna(), None).tolist()
-    return [v.item() if isinstance(v, np.generic) else v for v in values]
+    if pd.api.types.is_bool_dtype(series.dtype):
+        return series.astype(int).tolist()
+    obj = series.astype(object)
+    return obj.where(series.notna(), None).tolist()

@@ -71,10 +71,18 @@ def read_csv_table(path: str | Path, *, required: tuple[str, ...], label: str | 
             file=name, row=0, column=missing[0])
     if frame.empty:
         raise ImportDataError("the file has a header but no data rows", file=name)
-    for c in frame.columns:
-        frame[c] = frame[c].str.strip()
+    # Stripping every cell costs more than parsing; do it only when the text has padded cells.
+    if _is_padded(text):
+        for c in frame.columns:
+            frame[c] = frame[c].str.strip()
     frame["source_row"] = np.arange(1, len(frame) + 1)
     return frame
+
+
+def _is_padded(text: str) -> bool:
+    """True when some cell may start or end with a blank (substring tests run at C speed)."""
+    return (" ," in text or ", " in text or " \n" in text or "\n " in text or "\t" in text
+            or text.startswith(" ") or text.rstrip("\r\n").endswith(" ") or " \r" in text)
 
 
 def _line_from_parser_message(msg: str) -> int | None:
@@ -162,7 +170,9 @@ class Cells:
             first = int(np.flatnonzero(bad)[0])
             self.fail(mask, column, f"{sub.iloc[first]!r} is not an ISO 8601 date or time (YYYY-MM-DD[THH:MM[:SS]])")
         stamps = parsed.dt.tz_localize(None).to_numpy().astype("datetime64[s]")
-        text = np.datetime_as_string(stamps, unit="D" if date_only else "s")
+        text = np.datetime_as_string(stamps, unit="D" if date_only else "s").astype(object)
+        if present.all():
+            return pd.Series(text, index=values.index, dtype=object)
         out[present] = text
         return out
 
