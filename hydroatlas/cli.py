@@ -193,6 +193,102 @@ def stats(store, unit, k_unit, per, fmt, exclude_straddles, exclude_poor, by_wel
 
 
 @main.command()
+@click.argument("store")
+@click.option("--window", default=None, help="ISO 8601 interval FROM/TO: median head of each zone inside it.")
+@click.option("--at", default=None, help="Date: the reading nearest to it, per zone (instead of --window).")
+@click.option("--profiles", is_flag=True, help="Print the head profile of each multi-zone well instead of pairs.")
+@click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
+def verticals(store, window, at, profiles, fmt):
+    """Head differences, vertical gradients and aquitard leakage at multi-zone wells.
+
+    One row per pair of successive zones (top down): dhead is the upper head minus
+    the lower head (positive = downward flow), vertical_gradient is dhead over the
+    distance between the zone midpoints, and leakage_flux is the Darcy flux across
+    the aquitard and confining units between them, dhead / sum(b / K), with K the
+    unit's geometric-mean K used as vertical K.
+
+    Example: hydroatlas verticals district.gpkg --window 2024-03-01/2024-03-31 --format json
+    """
+    with open_store(store) as s:
+        pairs, prof = workflows.verticals(s, window=window, at=at)
+    frame = prof if profiles else pairs
+    _emit(frame, fmt)
+
+
+@main.command()
+@click.argument("store")
+@click.option("--unit", required=True, help="Unit code.")
+@click.option("--quantity", type=click.Choice(workflows.QUANTITIES), default="head", show_default=True,
+              help="head, logk (log10 K in m/d) or dhead (head minus the head of the unit below).")
+@click.option("--method", type=click.Choice(workflows.METHODS), default="kriging", show_default=True,
+              help="kriging (ordinary), uk (universal, linear drift) or idw.")
+@click.option("--window", default=None, help="ISO 8601 interval FROM/TO for heads (median per zone).")
+@click.option("--at", default=None, help="Date: the head reading nearest to it, per zone.")
+@click.option("--cell", type=float, default=None, help="Cell size in CRS units (default: 1/200 of the extent).")
+@click.option("--variogram", type=click.Choice(["spherical", "exponential", "gaussian"]), default="spherical",
+              show_default=True, help="Variogram model, fitted by weighted least squares unless fixed.")
+@click.option("--nugget", type=float, default=None, help="Fix the nugget.")
+@click.option("--sill", type=float, default=None, help="Fix the total sill (with --range).")
+@click.option("--range", "range_", type=float, default=None, help="Fix the practical range (with --sill).")
+@click.option("--neighbors", type=int, default=None,
+              help="Nearest points per cell; 0 = all (one global system). Default: all up to 400 points, else 16.")
+@click.option("--lower-unit", default=None, help="For dhead: the unit whose head is subtracted (default: next below).")
+@click.option("--buffer", type=float, default=None, help="Mask distance around the data when no domain polygon.")
+@click.option("--fallback-idw", is_flag=True, help="Use IDW when no variogram can be fitted (all values equal).")
+@click.option("--max-cells", type=int, default=None, help="Refuse grids larger than this (default 50,000,000).")
+@click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False), help="Output folder.")
+def surface(store, unit, quantity, method, window, at, cell, variogram, nugget, sill, range_, neighbors,
+            lower_unit, buffer, fallback_idw, max_cells, out):
+    """Interpolate head, log K or head difference of one unit onto a grid.
+
+    Writes OUT/<unit>_<quantity>.tif (band 1 estimate, band 2 kriging standard
+    deviation), OUT/<unit>_<quantity>.json (method, variogram, neighbourhood,
+    leave-one-out cross-validation of every method, window) and, for heads,
+    OUT/<unit>_gradient.tif and the flow_arrows layer of OUT/layers.gpkg.
+    The grid covers the domain polygon (areas of kind domain) or the data.
+
+    Caution: results are screening-level estimates for planning and model set-up,
+    not a substitute for site-specific investigation or for the judgement of a
+    licensed professional geoscientist or engineer; well construction, testing and
+    pumping are governed by local rules and permits. A smooth surface does not see
+    conduits, faults or barriers; in karst, flow can be far faster than it suggests.
+
+    Example: hydroatlas surface district.gpkg --unit ULS --quantity head --window 2024-03-01/2024-03-31
+    """
+    with open_store(store) as s:
+        result = workflows.build_surface(s, unit, quantity, method=method, window=window, at=at, cell=cell,
+                                         variogram=variogram, nugget=nugget, sill=sill, range_=range_,
+                                         neighbors="auto" if neighbors is None else (neighbors or None),
+                                         buffer=buffer, out=out,
+                                         fallback_idw=fallback_idw, max_cells=max_cells, lower_unit=lower_unit)
+    cv = result["cross_validation"].get(result["selected_method"], {})
+    click.echo(f"{unit} {quantity} by {result['selected_method']} from {result['n_points']} wells; "
+               f"leave-one-out RMSE {cv.get('rmse', float('nan')):.4g} {result['value_unit']}")
+    for kind, path in result["files"].items():
+        click.echo(f"  {kind}: {path}")
+
+
+@main.command()
+@click.argument("store")
+@click.option("--unit", required=True, help="Unit code.")
+@click.option("--wells", required=True, help="Three well ids, comma separated.")
+@click.option("--window", default=None, help="ISO 8601 interval FROM/TO for heads.")
+@click.option("--at", default=None, help="Date: the reading nearest to it.")
+@click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
+def threepoint(store, unit, wells, window, at, fmt):
+    """Hydraulic gradient and flow direction from the heads of three wells (plane through three points).
+
+    Example: hydroatlas threepoint district.gpkg --unit ULS --wells W1,W2,W3
+    """
+    with open_store(store) as s:
+        res = workflows.three_point_wells(s, unit, [w.strip() for w in wells.split(",")], window=window, at=at)
+    if fmt == "json":
+        _emit(pd.DataFrame(), "json", res)
+    else:
+        _emit(pd.DataFrame([{k: v for k, v in res.items() if k not in ("wells", "heads")}]), fmt)
+
+
+@main.command()
 @click.option("--out", default="demo_out", show_default=True, type=click.Path(file_okay=False),
               help="Folder for the demo store and its outputs.")
 def demo(out):

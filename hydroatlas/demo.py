@@ -58,10 +58,29 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
         findings = workflows.check_store(store)
         pd.DataFrame(findings).to_csv(out / "check.csv", index=False)
         workflows.zone_assignment(store).to_csv(out / "zone_units.csv", index=False)
+        pairs, profiles = workflows.verticals(store)
+        pairs.to_csv(out / "verticals.csv", index=False)
+        profiles.to_csv(out / "head_profiles.csv", index=False)
+        surfaces = out / "surfaces"
+        units = store.read("units")
+        written = []
+        for code in units.loc[units["role"] == "aquifer"].sort_values("rank")["code"]:
+            for quantity in ("head", "logk"):
+                res = workflows.build_surface(store, code, quantity, method="kriging", out=surfaces)
+                cv = res["cross_validation"]["kriging"]
+                written.append(f"  {code} {quantity}: {res['n_points']} wells, leave-one-out RMSE "
+                               f"{cv['rmse']:.3g} {res['value_unit']} -> {Path(res['files']['raster']).name}")
+        res = workflows.build_surface(store, "ULS", "dhead", method="kriging", lower_unit="LCL", out=surfaces)
+        written.append(f"  ULS dhead (minus {res['lower_unit']}): {res['n_points']} wells -> "
+                       f"{Path(res['files']['raster']).name}")
     finally:
         store.close()
     echo("\nUnit statistics (K in m/d, every test counts once):")
     echo(table.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
     echo(f"\n{len(findings)} data-quality findings in {out / 'check.csv'}")
+    echo(f"\nVertical head differences at multi-zone wells: {out / 'verticals.csv'}")
+    echo(f"Surfaces, gradients and flow arrows in {out / 'surfaces'}:")
+    for line in written:
+        echo(line)
     echo(f"store: {store_path}")
     return {"store": str(store_path), "stats": stats_rows, "findings": findings}

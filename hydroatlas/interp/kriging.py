@@ -73,7 +73,11 @@ class _Kriging:
         else:
             self.k_ = int(min(k, len(xy)))
             self.buckets_ = _kernels.build_buckets(self.iso_)
-            self.keys_ = np.random.default_rng(12345).integers(1, 2**63, len(xy), dtype=np.int64).astype(np.uint64)
+            self.keys_ = np.random.default_rng(12345).integers(1, 2**63, (len(xy), 2), dtype=np.int64).astype(np.uint64)
+            span = np.ptp(self.iso_, axis=0)
+            area = max(float(span[0] * span[1]), float(span.max()) ** 2 * 1e-6, 1e-300)
+            # tiles about half the typical distance to the k-th neighbour wide: few candidates per target
+            self.tile_width_ = 0.5 * float(np.sqrt(self.k_ * area / (np.pi * len(xy))))
         return self
 
     # -- helpers ---------------------------------------------------------------
@@ -143,27 +147,50 @@ class _Kriging:
         iso = np.ascontiguousarray(v.to_isotropic(q))
         x0, y0, size, nbx, nby, order, starts = self.buckets_
         radius2 = np.inf if self.radius is None else float(self.radius) ** 2
-        idx, count, hashes = _kernels.knn_sets(iso, self.iso_, x0, y0, size, nbx, nby, order, starts,
-                                               self.k_, radius2, self.keys_)
-        enough = count >= self.min_points
-        uniq, first, group = np.unique(np.where(enough, hashes, np.uint64(0)), return_index=True,
-                                       return_inverse=True)
+        perm, tile_starts, centers, half_diag = _tiles(iso, self.tile_width_)
+        sq = np.ascontiguousarray(iso[perm])
+        idx_s, count_s, hash_s = _kernels.knn_tiles(sq, tile_starts, centers, half_diag, self.iso_, x0, y0, size,
+                                                     nbx, nby, order, starts, self.k_, radius2, self.keys_)
+        idx = np.empty_like(idx_s)
+        idx[perm] = idx_s
+        count = np.empty_like(count_s)
+        count[perm] = count_s
+        hashes = np.empty_like(hash_s)
+        hashes[perm] = hash_s
+        enough = count >= self.min_points_local
+        h1 = np.where(enough, hashes[:, 0], np.uint64(0))
+        _, first, group = np.unique(h1, return_index=True, return_inverse=True)
         group = group.ravel().astype(np.int64)
-        rep = idx[first]
-        mask = rep >= 0
-        safe = np.where(mask, rep, 0)
-        a = self._system(self.iso_[safe], self.xy_[safe], mask)
-        ainv = _invert(a)
-        zrep = np.where(mask, self.z_[safe], 0.0)
-        rhs = np.concatenate([zrep, np.zeros((len(rep), self.n_drift))], axis=1)
-        alpha = np.einsum("gij,gj->gi", ainv, rhs)
-        est, var, ok = _kernels.apply_systems(
-            iso, self.iso_, idx, count, group, rep, ainv, alpha, v.code, v.nugget, v.partial_sill, v.range,
+        # a second, independent hash must agree too; a target where it does not shares a
+        # first hash with another set by chance (odds about 2**-64) and is solved alone
+        lone = enough & (hashes[:, 1] != hashes[first, 1][group])
+        rep = np.ascontiguousarray(idx[first])
+        ainv, alpha, solved = _kernels.build_systems(
+            rep, self.iso_, self.xy_, self.z_, v.code, v.nugget, v.partial_sill, v.range, self.n_drift,
+            float(self.center_[0]), float(self.center_[1]), self.scale_)
+        if not solved.all():  # singular sets (e.g. collinear points under a drift): pseudo-inverse
+            for g in np.flatnonzero(~solved):
+                members = rep[g][rep[g] >= 0]
+                if len(members) >= self.min_points_local:
+                    ainv[g], alpha[g] = self._pinv_system(members, rep.shape[1])
+        est, var = _kernels.apply_systems(
+            iso, self.iso_, count, group, rep, ainv, alpha, v.code, v.nugget, v.partial_sill, v.range,
             self.n_drift, float(self.center_[0]), float(self.center_[1]), self.scale_, self.min_points_local)
-        if not ok.all():  # hash collision: solve those targets one by one
-            for c in np.flatnonzero(~ok):
-                est[c], var[c] = self._solve_one(q[c], idx[c, : count[c]])
+        for c in np.flatnonzero(lone):
+            est[c], var[c] = self._solve_one(q[c], idx[c, : count[c]])
         return est, var
+
+    def _pinv_system(self, members, k):
+        s = k + self.n_drift
+        n = len(members)
+        a = self._system(self.iso_[members][None], self.xy_[members][None])[0]
+        full = np.eye(s)
+        keep = np.r_[np.arange(n), k + np.arange(self.n_drift)]
+        full[np.ix_(keep, keep)] = a
+        inv = np.linalg.pinv(full)
+        rhs = np.zeros(s)
+        rhs[:n] = self.z_[members]
+        return inv, inv @ rhs
 
     @property
     def min_points_local(self) -> int:
@@ -176,6 +203,22 @@ class _Kriging:
         b = np.concatenate([v(np.hypot(*(self.iso_[members] - iso).T)), self._drift(q[None])[0]])
         w = np.linalg.lstsq(a, b, rcond=None)[0]
         return float(w[: len(members)] @ self.z_[members]), float(w @ b)
+
+
+def _tiles(q: np.ndarray, width: float):
+    """Group targets into square tiles of ``width``: permutation, tile starts, centres, half-diagonals."""
+    lo = q.min(axis=0)
+    cell = np.floor((q - lo) / width).astype(np.int64)
+    nx = int(cell[:, 0].max()) + 1
+    key = cell[:, 1] * nx + cell[:, 0]
+    perm = np.argsort(key, kind="stable")
+    skey = key[perm]
+    breaks = np.flatnonzero(np.diff(skey)) + 1
+    tile_starts = np.concatenate([[0], breaks, [len(q)]]).astype(np.int64)
+    tkey = skey[tile_starts[:-1]]
+    centers = np.column_stack([lo[0] + (tkey % nx + 0.5) * width, lo[1] + (tkey // nx + 0.5) * width])
+    half_diag = np.full(len(centers), width * np.sqrt(0.5))
+    return perm, tile_starts, centers, half_diag
 
 
 def _invert(a: np.ndarray) -> np.ndarray:

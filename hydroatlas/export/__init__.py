@@ -1,0 +1,1 @@
+"""Writers: rasters (GeoTIFF), vector layers (GeoPackage, GeoJSON), sidecars. No store access here."""
