@@ -29,8 +29,8 @@ class TimeWindow:
             raise ParameterError(f"window {text!r} is not an ISO 8601 interval FROM/TO (e.g. 2024-03-01/2024-03-31)")
         a, b = (s.strip() for s in text.split("/"))
         try:
-            start = pd.Timestamp(a)
-            end = pd.Timestamp(b)
+            start = pd.to_datetime(a, format="ISO8601")
+            end = pd.to_datetime(b, format="ISO8601")
         except (ValueError, TypeError):
             raise ParameterError(f"window {text!r}: cannot read {a!r} or {b!r} as ISO 8601 dates") from None
         if start.tzinfo is not None:
@@ -63,7 +63,7 @@ def select_heads(heads: pd.DataFrame, *, window: TimeWindow | None = None, at: s
     h["t"] = pd.to_datetime(h["measured_at"], format="ISO8601")
     if at is not None:
         try:
-            t0 = pd.Timestamp(at)
+            t0 = pd.to_datetime(at, format="ISO8601")
         except (ValueError, TypeError):
             raise ParameterError(f"date {at!r} is not an ISO 8601 date") from None
         if h.empty:

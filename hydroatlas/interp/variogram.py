@@ -195,7 +195,7 @@ class Variogram:
         if model not in MODELS:
             raise ParameterError(f"unknown variogram model {model!r}; expected one of {', '.join(MODELS)}")
         z = np.asarray(z, dtype=float)
-        if z.size and np.ptp(z) == 0:
+        if z.size and np.ptp(z) <= 1e-12 * max(1.0, float(np.max(np.abs(z)))):
             raise InsufficientDataError("all values are equal: no variogram can be fitted "
                                         "(use IDW, or fix the variogram parameters)")
         exp = cls.experimental_from(xy, z, n_lags=n_lags, max_lag=max_lag, angle=angle, ratio=ratio)
@@ -224,7 +224,9 @@ class Variogram:
             start = [min(g[0], 0.5 * scale) * 0.5] + start
             lower = [0.0] + lower
             upper = [scale] + upper
-        start = np.clip(start, np.array(lower) + 1e-12, np.array(upper) - 1e-12)
+        lower, upper = np.array(lower, float), np.array(upper, float)
+        room = upper - lower
+        start = np.clip(start, lower + 1e-6 * room, upper - 1e-6 * room)
         sol = least_squares(residuals, start, bounds=(lower, upper), x_scale="jac")
         nug, psill, rng_ = unpack(sol.x)
         psill = max(psill, 1e-12 * scale)
