@@ -193,9 +193,12 @@ def build(out: Path) -> dict[str, int]:
     for p, (rate, unit) in zip(pumpers, rates):
         pumping.append([p[0], "S1", rate, unit, "2021-06-01T00:00:00", ""])
 
-    springs = [["SP-1", round(SPRING[0], 1), round(SPRING[1], 1), round(float(ground(*SPRING)), 2), "Lanternfall Spring"],
-               ["SP-2", round(X0 + 3_200.0, 1), round(Y0 + 11_800.0, 1),
-                round(float(ground(X0 + 3_200.0, Y0 + 11_800.0)) - 2.0, 2), "Wren Seep"]]
+    # springs issue where the unit's head meets the ground: their elevation is a head of that unit
+    sp2 = (X0 + 3_200.0, Y0 + 11_800.0)
+    springs = [["SP-1", round(SPRING[0], 1), round(SPRING[1], 1), round(float(heads(*SPRING)["ULS"]), 2),
+                "Lanternfall Spring", "ULS"],
+               ["SP-2", round(sp2[0], 1), round(sp2[1], 1), round(float(heads(*sp2)["ULS"]) - 1.5, 2),
+                "Wren Seep", "ULS"]]
     discharge = []
     for m, when in enumerate(months):
         q1 = 28_000.0 * (1 + 0.35 * season[m]) * float(np.exp(0.1 * rng.normal()))
@@ -213,7 +216,7 @@ def build(out: Path) -> dict[str, int]:
     _write(out / "heads.csv", ["well_id", "zone_id", "measured_at", "head", "depth_to_water", "ref_elev", "quality"],
            head_rows)
     _write(out / "pumping.csv", ["well_id", "zone_id", "rate", "rate_unit", "start", "end"], pumping)
-    _write(out / "springs.csv", ["spring_id", "x", "y", "elev", "name"], springs)
+    _write(out / "springs.csv", ["spring_id", "x", "y", "elev", "name", "unit"], springs)
     _write(out / "discharge.csv", ["spring_id", "measured_at", "discharge", "rate_unit"], discharge)
     _write_areas(out / "areas.geojson")
     (out / "crs.txt").write_text(CRS + "\n")

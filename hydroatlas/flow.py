@@ -84,3 +84,266 @@ def _nan_gradient(h):
         g = np.where(np.isfinite(central), central, np.where(np.isfinite(fwd), fwd, bwd))
         out.append(g)
     return out[0], out[1]
+
+
+# -- particle tracking -----------------------------------------------------------
+END_KINDS = ("sink", "edge", "stagnation", "max_time", "max_steps")
+
+# Dormand-Prince 5(4) coefficients (Dormand and Prince 1980).
+_DP_C = np.array([0.0, 1 / 5, 3 / 10, 4 / 5, 8 / 9, 1.0, 1.0])
+_DP_A = [
+    [],
+    [1 / 5],
+    [3 / 40, 9 / 40],
+    [44 / 45, -56 / 15, 32 / 9],
+    [19372 / 6561, -25360 / 2187, 64448 / 6561, -212 / 729],
+    [9017 / 3168, -355 / 33, 46732 / 5247, 49 / 176, -5103 / 18656],
+    [35 / 384, 0.0, 500 / 1113, 125 / 192, -2187 / 6784, 11 / 84],
+]
+_DP_B5 = np.array([35 / 384, 0.0, 500 / 1113, 125 / 192, -2187 / 6784, 11 / 84, 0.0])
+_DP_B4 = np.array([5179 / 57600, 0.0, 7571 / 16695, 393 / 640, -92097 / 339200, 187 / 2100, 1 / 40])
+
+
+class VelocityGrid:
+    """A seepage-velocity field given at the cell centres of a north-up grid, read by bilinear interpolation.
+
+    Parameters
+    ----------
+    x0, y0 : float
+        Upper-left corner of the grid.
+    cell : float
+        Cell size (CRS units).
+    vx, vy : arrays (nrows, ncols)
+        East and north velocity components (CRS units per day); NaN where there is no field.
+    """
+
+    def __init__(self, x0: float, y0: float, cell: float, vx, vy):
+        self.x0, self.y0, self.cell = float(x0), float(y0), float(cell)
+        self.vx = np.asarray(vx, float)
+        self.vy = np.asarray(vy, float)
+        if self.vx.shape != self.vy.shape or self.vx.ndim != 2:
+            raise ParameterError(f"vx and vy must be 2-D arrays of one shape; got {self.vx.shape}, {self.vy.shape}")
+        self.nrows, self.ncols = self.vx.shape
+        # pad with NaN so that the four corners of any interior point can be gathered without bounds checks
+        self._px = np.pad(self.vx, 1, constant_values=np.nan)
+        self._py = np.pad(self.vy, 1, constant_values=np.nan)
+
+    @classmethod
+    def from_head(cls, x0, y0, cell, head, k, porosity: float, *, vertical_per_horizontal: float = 1.0,
+                  k_per_day_to_crs: float = 1.0) -> "VelocityGrid":
+        """Darcy seepage velocity v = -K grad(h) / n_e from a head grid.
+
+        ``k`` is a scalar or a grid of hydraulic conductivity in length per day;
+        ``k_per_day_to_crs`` turns it into CRS units per day; heads are turned into
+        CRS units by ``vertical_per_horizontal``.
+        """
+        if not (0 < porosity <= 1):
+            raise ParameterError(f"effective porosity must be in (0, 1]; got {porosity}")
+        h = np.asarray(head, float) * vertical_per_horizontal
+        d_drow, d_dcol = _nan_gradient(h)
+        gx = d_dcol / cell
+        gy = -d_drow / cell
+        kk = np.asarray(k, float) * k_per_day_to_crs
+        return cls(x0, y0, cell, -kk * gx / porosity, -kk * gy / porosity)
+
+    def __call__(self, xy) -> tuple[np.ndarray, np.ndarray]:
+        xy = np.atleast_2d(np.asarray(xy, float))
+        fc = (xy[:, 0] - self.x0) / self.cell - 0.5 + 1.0  # +1: padding
+        fr = (self.y0 - xy[:, 1]) / self.cell - 0.5 + 1.0
+        inside = (fc >= 0.5) & (fc <= self.ncols + 0.5) & (fr >= 0.5) & (fr <= self.nrows + 0.5)
+        fc = np.where(inside, fc, 1.0)
+        fr = np.where(inside, fr, 1.0)
+        c0 = np.floor(fc).astype(np.int64)
+        r0 = np.floor(fr).astype(np.int64)
+        c0 = np.clip(c0, 0, self.ncols)
+        r0 = np.clip(r0, 0, self.nrows)
+        tc = fc - c0
+        tr = fr - r0
+        out = []
+        for grid in (self._px, self._py):
+            v00 = grid[r0, c0]
+            v01 = grid[r0, c0 + 1]
+            v10 = grid[r0 + 1, c0]
+            v11 = grid[r0 + 1, c0 + 1]
+            # near the edge of the field, fall back to the available corners (renormalised weights)
+            w = np.stack([(1 - tr) * (1 - tc), (1 - tr) * tc, tr * (1 - tc), tr * tc])
+            v = np.stack([v00, v01, v10, v11])
+            ok = np.isfinite(v)
+            wsum = np.where(ok, w, 0.0).sum(axis=0)
+            val = np.where(ok, w * np.where(ok, v, 0.0), 0.0).sum(axis=0)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                res = np.where(wsum > 0.25, val / wsum, np.nan)
+            out.append(np.where(inside, res, np.nan))
+        return out[0], out[1]
+
+
+class TrackResult:
+    """Paths and end states of tracked particles.
+
+    Attributes
+    ----------
+    paths : list of arrays (n_i, 3)
+        x, y, elapsed time (days) of recorded points.
+    end_kind : array of str
+        One of 'sink', 'edge', 'stagnation', 'max_time', 'max_steps'.
+    end_sink : array of int
+        Index of the sink reached, -1 otherwise.
+    time : array
+        Travel time (days) at the end.
+    end_xy : array (n, 2)
+    """
+
+    def __init__(self, paths, end_kind, end_sink, time, end_xy):
+        self.paths, self.end_kind, self.end_sink, self.time, self.end_xy = paths, end_kind, end_sink, time, end_xy
+
+
+def track(seeds, velocity, *, backward: bool = False, t_max: float = 365_250.0, sinks=None,
+          sink_radius=None, max_step: float | None = None, tol: float | None = None, min_speed: float = 0.0,
+          max_steps: int = 100_000, record_spacing: float | None = None) -> TrackResult:
+    """Track particles through a velocity field with an adaptive Dormand-Prince 5(4) integrator.
+
+    All particles advance together (vectorised), each with its own step size.
+    The step is limited by the error estimate (``tol``, a distance) and by
+    ``max_step`` (a distance, so that no sink or grid feature is jumped over).
+
+    Parameters
+    ----------
+    seeds : array (n, 2)
+    velocity : callable
+        ``velocity(xy) -> (vx, vy)`` in CRS units per day; NaN outside the field.
+    backward : bool
+        Track against the flow (contributing areas).
+    t_max : float
+        Maximum travel time (days).
+    sinks : array (k, 2), optional
+        Springs or wells; a particle closer than ``sink_radius`` (scalar or (k,)) ends there.
+    max_step, tol : float
+        Largest displacement per step and the error tolerance (distances; default
+        from the field's cell size: 0.5 and 0.005 cells).
+    min_speed : float
+        Below this speed (CRS units per day) a particle ends as 'stagnation'.
+    record_spacing : float
+        Record a path point every time a particle has moved this far (default max_step).
+    """
+    p = np.array(seeds, dtype=float, copy=True)
+    if p.ndim != 2 or p.shape[1] != 2:
+        raise ParameterError(f"seeds must have shape (n, 2); got {p.shape}")
+    n = len(p)
+    cell = getattr(velocity, "cell", None)
+    if max_step is None:
+        if cell is None:
+            raise ParameterError("give max_step for a velocity field without a cell size")
+        max_step = 0.5 * cell
+    tol = tol if tol is not None else 0.01 * max_step
+    record_spacing = record_spacing or max_step
+    sign = -1.0 if backward else 1.0
+    sinks = np.zeros((0, 2)) if sinks is None else np.atleast_2d(np.asarray(sinks, float))
+    radius = np.broadcast_to(np.asarray(0.0 if sink_radius is None else sink_radius, float), (len(sinks),))
+
+    def vel(xy):
+        vx, vy = velocity(xy)
+        return sign * np.asarray(vx, float), sign * np.asarray(vy, float)
+
+    t = np.zeros(n)
+    end_kind = np.array(["max_steps"] * n, dtype=object)
+    end_sink = np.full(n, -1)
+    active = np.ones(n, bool)
+    paths = [[(p[i, 0], p[i, 1], 0.0)] for i in range(n)]
+    last_rec = p.copy()
+    steps = np.zeros(n, dtype=np.int64)
+
+    vx, vy = vel(p)
+    speed = np.hypot(vx, vy)
+    _end(active, ~np.isfinite(speed), end_kind, "edge")
+    _end(active, np.isfinite(speed) & (speed <= min_speed), end_kind, "stagnation")
+    hit = _sink_hits(p, sinks, radius)
+    _end(active, hit >= 0, end_kind, "sink")
+    end_sink[hit >= 0] = hit[hit >= 0]
+    dt = np.where(speed > 0, max_step / np.where(speed > 0, speed, 1.0), 1.0)
+    k1x, k1y = vx.copy(), vy.copy()
+
+    while active.any():
+        a = np.flatnonzero(active)
+        dta = np.minimum(dt[a], t_max - t[a])
+        x0 = p[a]
+        kx = np.empty((7, len(a)))
+        ky = np.empty((7, len(a)))
+        kx[0], ky[0] = k1x[a], k1y[a]
+        for s in range(1, 7):
+            xs = x0[:, 0] + dta * sum(_DP_A[s][j] * kx[j] for j in range(s))
+            ys = x0[:, 1] + dta * sum(_DP_A[s][j] * ky[j] for j in range(s))
+            kx[s], ky[s] = vel(np.column_stack([xs, ys]))
+        x5 = x0[:, 0] + dta * (_DP_B5 @ kx)
+        y5 = x0[:, 1] + dta * (_DP_B5 @ ky)
+        ex = dta * ((_DP_B5 - _DP_B4) @ kx)
+        ey = dta * ((_DP_B5 - _DP_B4) @ ky)
+        err = np.hypot(ex, ey) / tol
+        move = np.hypot(x5 - x0[:, 0], y5 - x0[:, 1])
+        finite = np.isfinite(err) & np.isfinite(x5) & np.isfinite(y5)
+        accept = finite & (err <= 1.0) & (move <= 1.5 * max_step)
+        # step-size update (standard safety factor 0.9, exponent 1/5), capped by the displacement limit
+        with np.errstate(divide="ignore", invalid="ignore"):
+            grow = np.where(finite & (err > 0), 0.9 * err ** -0.2, 5.0)
+        grow = np.clip(grow, 0.2, 5.0)
+        new_dt = dta * np.where(finite, grow, 0.25)
+        sp = np.hypot(kx[6], ky[6])
+        cap = np.where(np.isfinite(sp) & (sp > 0), max_step / np.where(sp > 0, sp, 1.0), np.inf)
+        new_dt = np.minimum(new_dt, np.where(accept, cap, np.inf))
+        # a particle whose step keeps failing at a tiny size has left the field
+        stuck = ~finite & (dta * np.where(np.isfinite(speed[a]), speed[a], 0) < 1e-3 * max_step)
+        acc = a[accept]
+        p[acc, 0], p[acc, 1] = x5[accept], y5[accept]
+        t[acc] += dta[accept]
+        k1x[acc], k1y[acc] = kx[6][accept], ky[6][accept]  # first-same-as-last
+        speed[acc] = sp[accept]
+        dt[a] = new_dt
+        steps[a] += 1
+        # record thinned path points
+        moved = np.hypot(p[acc, 0] - last_rec[acc, 0], p[acc, 1] - last_rec[acc, 1]) >= record_spacing
+        for i in acc[moved]:
+            paths[i].append((p[i, 0], p[i, 1], t[i]))
+        last_rec[acc[moved]] = p[acc[moved]]
+        # ends
+        if len(sinks):
+            hit = np.full(n, -1)
+            hit[acc] = _sink_hits(p[acc], sinks, radius, x0[accept])
+            done = hit >= 0
+            end_sink[done] = hit[done]
+            _end(active, done, end_kind, "sink")
+        _end(active, np.isin(np.arange(n), a[stuck]), end_kind, "edge")
+        slow = np.zeros(n, bool)
+        slow[acc] = sp[accept] <= min_speed
+        _end(active, slow, end_kind, "stagnation")
+        late = np.zeros(n, bool)
+        late[acc] = t[acc] >= t_max * (1 - 1e-12)
+        _end(active, late, end_kind, "max_time")
+        many = active & (steps >= max_steps)
+        _end(active, many, end_kind, "max_steps")
+    for i in range(n):
+        if paths[i][-1][2] != t[i]:
+            paths[i].append((p[i, 0], p[i, 1], t[i]))
+    return TrackResult([np.array(pth) for pth in paths], end_kind.astype(str), end_sink, t, p)
+
+
+def _end(active, mask, end_kind, kind):
+    mask = mask & active
+    end_kind[mask] = kind
+    active[mask] = False
+
+
+def _sink_hits(p, sinks, radius, start=None):
+    """Index of the first sink within its radius of each point (or of the segment start -> point), else -1."""
+    if len(sinks) == 0:
+        return np.full(len(p), -1)
+    if start is None:
+        d = np.hypot(p[:, None, 0] - sinks[None, :, 0], p[:, None, 1] - sinks[None, :, 1])
+    else:  # closest approach of each step's segment
+        seg = p - start
+        rel = sinks[None, :, :] - start[:, None, :]
+        L2 = np.maximum((seg**2).sum(1), 1e-300)[:, None]
+        u = np.clip((rel * seg[:, None, :]).sum(2) / L2, 0.0, 1.0)
+        closest = start[:, None, :] + u[:, :, None] * seg[:, None, :]
+        d = np.hypot(closest[:, :, 0] - sinks[None, :, 0], closest[:, :, 1] - sinks[None, :, 1])
+    inside = d <= radius[None, :]
+    first = np.where(inside.any(1), np.argmax(inside, axis=1), -1)
+    return first

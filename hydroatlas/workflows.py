@@ -183,6 +183,13 @@ def surface_points(store: Store, unit: str, quantity: str, *, window=None, at: s
         info["at"] = at
         if quantity == "head":
             per_well = here
+            # a spring issuing from the unit is a point where its head equals the ground (common practice)
+            springs = store.read("springs", ["spring_id", "x", "y", "elev", "unit"])
+            springs = springs[springs["unit"].isin(members)]
+            if not springs.empty:
+                info["springs_as_heads"] = list(springs["spring_id"])
+                wells = pd.concat([wells, springs.set_index("spring_id")[["x", "y"]]])
+                per_well = pd.concat([per_well, springs.set_index("spring_id")["elev"]])
         else:
             rank = dict(zip(units["code"], units["rank"]))
             lower = per_unit[per_unit["unit"].map(rank) > max(rank[c] for c in members)]
@@ -305,7 +312,8 @@ def build_surface(store: Store, unit: str, quantity: str, *, method: str = "krig
     tif = write_geotiff(out / f"{stem}.tif", grid, bands, crs=store.settings.crs, descriptions=names,
                         tags={"caution": CAUTION, "quantity": quantity, "unit": unit})
     sidecar = {"unit": unit, "quantity": quantity, "value_unit": info["value_unit"], **minfo,
-               "n_points": int(len(z)), "wells": well_ids, "window": info.get("window"), "at": info.get("at"),
+               "n_points": int(len(z)), "wells": well_ids, "springs_as_heads": info.get("springs_as_heads", []),
+               "window": info.get("window"), "at": info.get("at"),
                "lower_unit": info.get("lower_unit"), "cross_validation": cv, "selected_method": minfo["method"],
                "grid": grid.to_dict(), "mask": mask_info, "crs": store.settings.crs.to_string(),
                "bands": names, "nodata": -9999.0, "store": store.location, "caution": CAUTION,
@@ -377,3 +385,223 @@ def three_point_wells(store: Store, unit: str, well_ids: list[str], *, window=No
     res = flow.three_point(xy[sel], z[sel] * _length_to_m(store) / _crs_to_m(store))
     res.update({"unit": unit, "wells": well_ids, "heads": z[sel].tolist()})
     return res
+
+
+# -- pathways (SPEC 2.8) -----------------------------------------------------------
+KARST_WARNING = ("Darcy travel times on a smooth head surface are upper bounds in karst: conduits can carry water "
+                 "orders of magnitude faster, and particle paths do not see conduits, faults or barriers.")
+
+
+def read_surface(folder, unit: str, quantity: str, store_path: str):
+    """A surface GeoTIFF written by `hydroatlas surface` as (grid, band-1 array); clear error when missing."""
+    import rasterio
+
+    from .interp.grid import GridSpec
+
+    path = Path(folder) / f"{unit}_{quantity}.tif"
+    if not path.is_file():
+        raise ParameterError(f"no {quantity} surface for unit {unit} in {folder}; make it with "
+                             f"'hydroatlas surface {store_path} --unit {unit} --quantity {quantity} --out {folder}'")
+    with rasterio.open(path) as src:
+        band = src.read(1, masked=True).filled(np.nan).astype(float)
+        t = src.transform
+        grid = GridSpec(t.c, t.f, t.a, src.height, src.width, src.crs.to_wkt() if src.crs else None)
+    if abs(t.e + t.a) > 1e-9 * abs(t.a) or t.b or t.d:
+        raise ParameterError(f"{path} is not a north-up grid with square cells")
+    return grid, band
+
+
+def _recharge_areas(store: Store, unit: str):
+    areas = store.read_geometries("areas")
+    rech = areas[(areas["kind"] == "recharge") & (areas["unit"].isna() | (areas["unit"] == unit))] \
+        if not areas.empty else areas
+    if rech.empty:
+        raise ParameterError(f"the store has no recharge area for unit {unit}; import one with "
+                             "'hydroatlas import STORE areas FILE' (kind recharge)")
+    return rech
+
+
+def _seed_points(polygon, spacing: float) -> np.ndarray:
+    import shapely
+
+    xmin, ymin, xmax, ymax = polygon.bounds
+    xs = np.arange(xmin + spacing / 2, xmax, spacing)
+    ys = np.arange(ymin + spacing / 2, ymax, spacing)
+    gx, gy = np.meshgrid(xs, ys)
+    gx, gy = gx.ravel(), gy.ravel()
+    inside = shapely.contains_xy(polygon, gx, gy)
+    pts = np.column_stack([gx[inside], gy[inside]])
+    if len(pts) == 0:
+        c = polygon.representative_point()
+        pts = np.array([[c.x, c.y]])
+    return pts
+
+
+def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=None, backward: bool = False,
+                k_source: str = "mean", seed_spacing: float | None = None, capture_radius: float | None = None,
+                max_years: float = 1000.0, seeds_per_spring: int = 72) -> dict:
+    """Track particles on a unit's head surface: forward from recharge areas, or backward from springs.
+
+    Writes the ``pathlines`` layer (and ``contributing_areas`` when backward) of OUT/layers.gpkg,
+    OUT/<unit>_pathways.csv and a JSON sidecar. Returns a summary dict.
+    """
+    import geopandas as gpd
+    import shapely
+
+    from . import flow
+    from .export.layers import write_layer
+    from .export.rasters import write_sidecar
+
+    if not (isinstance(porosity, (int, float)) and 0 < porosity <= 1):
+        raise ParameterError(f"effective porosity must be in (0, 1]; got {porosity}")
+    if k_source not in ("mean", "surface"):
+        raise ParameterError(f"k_source must be 'mean' or 'surface'; got {k_source!r}")
+    crs_to_m = _crs_to_m(store)
+    units = store.read("units")
+    _unit_members(units, unit)
+    out = Path(out)
+    folder = Path(surfaces) if surfaces is not None else out
+    grid, head = read_surface(folder, unit, "head", store.location)
+    if k_source == "surface":
+        kgrid, logk = read_surface(folder, unit, "logk", store.location)
+        if kgrid.shape != grid.shape or abs(kgrid.x0 - grid.x0) > 1e-6 or abs(kgrid.cell - grid.cell) > 1e-9:
+            raise ParameterError("the head and log-K surfaces of the unit are on different grids; "
+                                 "make both with the same --cell")
+        k_md = 10.0 ** logk
+        k_info = {"source": "log-K surface", "file": str(folder / f"{unit}_logk.tif")}
+    else:
+        row = next(r for r in unit_stats(store, k_unit="m/d") if r["unit"] == unit)
+        if row["k_geomean"] is None:
+            raise InsufficientDataError(f"unit {unit} has no K tests; its geometric-mean K is unknown")
+        k_md = row["k_geomean"]
+        k_info = {"source": "unit geometric mean", "k_m_per_d": k_md}
+    field = flow.VelocityGrid.from_head(grid.x0, grid.y0, grid.cell, head, k_md, porosity,
+                                        vertical_per_horizontal=_length_to_m(store) / crs_to_m,
+                                        k_per_day_to_crs=1.0 / crs_to_m)
+    springs = store.read("springs")
+    if springs.empty:
+        raise ParameterError("the store has no spring; import springs with 'hydroatlas import STORE springs FILE'")
+    pumped = set(store.read("pumping", ["well_id"])["well_id"])
+    wells = store.read("wells", ["well_id", "x", "y"])
+    pw = wells[wells["well_id"].isin(pumped)]
+    sink_xy = np.vstack([springs[["x", "y"]].to_numpy(float), pw[["x", "y"]].to_numpy(float)])
+    sink_ids = list(springs["spring_id"]) + list(pw["well_id"])
+    sink_kind = ["spring"] * len(springs) + ["pumping well"] * len(pw)
+    radius = capture_radius if capture_radius is not None else 2.0 * grid.cell
+    if not radius > 0:
+        raise ParameterError(f"capture radius must be > 0; got {radius}")
+    t_max = max_years * 365.25
+    recharge = _recharge_areas(store, unit) if not backward else None
+    if backward:
+        ang = np.linspace(0, 2 * np.pi, seeds_per_spring, endpoint=False)
+        seeds, origin = [], []
+        for sid, x, y in springs[["spring_id", "x", "y"]].itertuples(index=False):
+            seeds.append(np.column_stack([x + 1.01 * radius * np.cos(ang), y + 1.01 * radius * np.sin(ang)]))
+            origin += [sid] * len(ang)
+        seeds = np.vstack(seeds)
+        res = flow.track(seeds, field, backward=True, t_max=t_max, max_step=0.5 * grid.cell)
+    else:
+        seeds, origin = [], []
+        for aid, geom in zip(recharge["area_id"], recharge.geometry):
+            spacing = seed_spacing or max(grid.cell, float(np.sqrt(geom.area / 200.0)))
+            pts = _seed_points(geom, spacing)
+            seeds.append(pts)
+            origin += [aid] * len(pts)
+        seeds = np.vstack(seeds)
+        res = flow.track(seeds, field, t_max=t_max, sinks=sink_xy, sink_radius=radius, max_step=0.5 * grid.cell)
+    end_id = [sink_ids[i] if i >= 0 else None for i in res.end_sink]
+    end_label = [f"{sink_kind[i]} {sink_ids[i]}" if i >= 0 else k for i, k in zip(res.end_sink, res.end_kind)]
+    lines = [shapely.LineString(p[:, :2]) if len(p) >= 2 else shapely.LineString([p[0, :2], p[0, :2]])
+             for p in res.paths]
+    direction = "backward" if backward else "forward"
+    gdf = gpd.GeoDataFrame({"unit": unit, "particle": np.arange(len(lines)), "direction": direction,
+                            "origin": origin, "end_kind": res.end_kind, "end_id": end_id,
+                            "travel_days": res.time, "travel_years": res.time / 365.25},
+                           geometry=lines, crs=store.settings.crs)
+    gpkg = out / "layers.gpkg"
+    write_layer(gpkg, "pathlines", gdf, description=KARST_WARNING)
+    files = {"pathlines": f"{gpkg}:pathlines"}
+    if backward:
+        ca, table = _contributing_areas(store, unit, field, grid, head, springs, sink_xy, radius, t_max)
+        write_layer(gpkg, "contributing_areas", ca, description=KARST_WARNING)
+        files["contributing_areas"] = f"{gpkg}:contributing_areas"
+    else:
+        table = _forward_table(origin, end_label, res.time)
+    csv_path = out / f"{unit}_pathways.csv"
+    table.to_csv(csv_path, index=False)
+    files["table"] = str(csv_path)
+    side = {"unit": unit, "direction": direction, "porosity": porosity, "k": k_info,
+            "capture_radius": radius, "max_years": max_years, "n_particles": int(len(seeds)),
+            "head_surface": str(folder / f"{unit}_head.tif"), "integrator": "Dormand-Prince 5(4), adaptive",
+            "caution": CAUTION, "karst_warning": KARST_WARNING, "files": files}
+    write_sidecar(out / f"{unit}_pathways.json", side)
+    files["sidecar"] = str(out / f"{unit}_pathways.json")
+    side["table"] = table
+    return side
+
+
+def _forward_table(origin, end_label, time) -> pd.DataFrame:
+    frame = pd.DataFrame({"recharge_area": origin, "destination": end_label, "days": time})
+    rows = []
+    for area, g in frame.groupby("recharge_area", sort=True):
+        for dest, gd in g.groupby("destination", sort=True):
+            d = gd["days"].to_numpy()
+            rows.append({"recharge_area": area, "destination": dest, "particles": len(d),
+                         "share": len(d) / len(g), "median_days": float(np.median(d)),
+                         "p10_days": float(np.percentile(d, 10)), "p90_days": float(np.percentile(d, 90)),
+                         "median_years": float(np.median(d)) / 365.25})
+    return pd.DataFrame(rows)
+
+
+def _contributing_areas(store: Store, unit: str, field, grid, head, springs, sink_xy, radius, t_max,
+                        max_particles: int = 20_000):
+    """Contributing area of each spring: the cells whose forward path ends at it.
+
+    A lattice of particles over every cell of the head surface (thinned to about
+    ``max_particles``) is tracked forward; the cells whose particle reaches a
+    spring are polygonised into that spring's contributing area. Backward paths
+    from a ring around a spring sample a converging catchment poorly (most of
+    the ring maps to a few flow tubes), so the delineation is done this way.
+    Returns the polygon layer and, per spring and recharge area, the share of the
+    area's cells that drain to the spring with their travel times.
+    """
+    import geopandas as gpd
+    import shapely
+    from rasterio.features import shapes
+    from rasterio.transform import from_origin
+
+    from . import flow
+
+    valid = np.isfinite(head)
+    stride = max(1, int(np.ceil(np.sqrt(valid.sum() / max_particles))))
+    rows, cols = np.nonzero(valid[::stride, ::stride])
+    xs = grid.x_centers()[::stride][cols]
+    ys = grid.y_centers()[::stride][rows]
+    res = flow.track(np.column_stack([xs, ys]), field, t_max=t_max, sinks=sink_xy, sink_radius=radius,
+                     max_step=0.5 * grid.cell)
+    shape = valid[::stride, ::stride].shape
+    transform = from_origin(grid.x0, grid.y0, grid.cell * stride, grid.cell * stride)
+    areas = store.read_geometries("areas")
+    rech = areas[(areas["kind"] == "recharge") & (areas["unit"].isna() | (areas["unit"] == unit))] \
+        if not areas.empty else areas
+    polys, rows_out = [], []
+    for j, sid in enumerate(springs["spring_id"]):
+        reach = res.end_sink == j
+        raster = np.zeros(shape, dtype=np.uint8)
+        raster[rows[reach], cols[reach]] = 1
+        parts = [shapely.geometry.shape(g) for g, v in shapes(raster, mask=raster == 1, transform=transform) if v == 1]
+        geom = shapely.union_all(parts) if parts else shapely.Polygon()
+        t = res.time[reach]
+        polys.append({"spring_id": sid, "unit": unit, "cells": int(reach.sum()), "area": float(geom.area),
+                      "median_days": float(np.median(t)) if len(t) else None, "geometry": geom})
+        for aid, poly in zip(rech["area_id"], rech.geometry):
+            inside = shapely.contains_xy(poly, xs, ys)
+            hit = inside & reach
+            tt = res.time[hit]
+            rows_out.append({"spring_id": sid, "recharge_area": aid, "area_cells": int(inside.sum()),
+                             "share": float(hit.sum() / inside.sum()) if inside.any() else None,
+                             "median_days": float(np.median(tt)) if len(tt) else None,
+                             "p10_days": float(np.percentile(tt, 10)) if len(tt) else None,
+                             "p90_days": float(np.percentile(tt, 90)) if len(tt) else None})
+    ca = gpd.GeoDataFrame(polys, geometry="geometry", crs=store.settings.crs)
+    return ca, pd.DataFrame(rows_out)

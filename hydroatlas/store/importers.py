@@ -47,7 +47,7 @@ OPTIONAL = {
     "ktests": ("quality", "source", "test_id"),
     "heads": ("head", "depth_to_water", "ref_elev", "quality"),
     "pumping": ("zone_id", "end"),
-    "springs": ("name",),
+    "springs": ("name", "unit"),
     "discharge": (),
     "areas": ("unit",),
 }
@@ -406,9 +406,13 @@ def _prepare_springs(store, path, label, crs_in):
     spring_id = cells.text("spring_id")
     elev = cells.number("elev")
     name = cells.text("name", required=False)
+    unit = cells.text("unit", required=False)
     _unique(cells, [spring_id], ("spring_id",))
+    units = set(store.read("units", ["code"])["code"])
+    cells.fail(unit.notna().to_numpy() & ~unit.isin(units).to_numpy(), "unit",
+               "unit is not in the store; import it in a units file first")
     x, y, original = _coordinates(cells, store, crs_in)
-    frame = pd.DataFrame({"spring_id": spring_id, "x": x, "y": y, "elev": elev, "name": name,
+    frame = pd.DataFrame({"spring_id": spring_id, "x": x, "y": y, "elev": elev, "name": name, "unit": unit,
                           "attrs": cells.attrs(_known("springs")), "source_row": cells.rows})
     if original is not None:
         frame["x_input"], frame["y_input"], frame["input_crs"] = original

@@ -138,10 +138,11 @@ _add(Table(
 _add(Table(
     "springs",
     (C("spring_id", not_null=True), C("x", "REAL", True), C("y", "REAL", True), C("elev", "REAL", True),
-     C("name"), C("x_input", "REAL"), C("y_input", "REAL"), C("input_crs")),
+     C("name"), C("unit"), C("x_input", "REAL"), C("y_input", "REAL"), C("input_crs")),
     key=("spring_id",),
+    foreign_keys=((("unit",), "units", ("code",)),),
     geometry="POINT",
-    description="Springs.",
+    description="Springs; unit is the unit the spring issues from (its elevation is then a head of that unit).",
 ))
 _add(Table(
     "discharge",
