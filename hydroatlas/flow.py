@@ -198,7 +198,7 @@ class TrackResult:
 
 
 def track(seeds, velocity, *, backward: bool = False, t_max: float = 365_250.0, sinks=None,
-          sink_radius=None, max_step: float | None = None, tol: float | None = None, min_speed: float = 0.0,
+          sink_radius=None, max_step: float | None = None, tol: float | None = None, min_speed: float | None = None,
           max_steps: int = 100_000, record_spacing: float | None = None) -> TrackResult:
     """Track particles through a velocity field with an adaptive Dormand-Prince 5(4) integrator.
 
@@ -221,7 +221,9 @@ def track(seeds, velocity, *, backward: bool = False, t_max: float = 365_250.0, 
         Largest displacement per step and the error tolerance (distances; default
         from the field's cell size: 0.5 and 0.005 cells).
     min_speed : float
-        Below this speed (CRS units per day) a particle ends as 'stagnation'.
+        Below this speed (CRS units per day) a particle ends as 'stagnation'
+        (default 1e-6 max_step per day: a particle that would need thousands of
+        years to cross a cell, as at a stagnation point).
     record_spacing : float
         Record a path point every time a particle has moved this far (default max_step).
     """
@@ -235,6 +237,7 @@ def track(seeds, velocity, *, backward: bool = False, t_max: float = 365_250.0, 
             raise ParameterError("give max_step for a velocity field without a cell size")
         max_step = 0.5 * cell
     tol = tol if tol is not None else 0.01 * max_step
+    min_speed = 1e-6 * max_step if min_speed is None else min_speed
     record_spacing = record_spacing or max_step
     sign = -1.0 if backward else 1.0
     sinks = np.zeros((0, 2)) if sinks is None else np.atleast_2d(np.asarray(sinks, float))
@@ -285,6 +288,8 @@ def track(seeds, velocity, *, backward: bool = False, t_max: float = 365_250.0, 
         with np.errstate(divide="ignore", invalid="ignore"):
             grow = np.where(finite & (err > 0), 0.9 * err ** -0.2, 5.0)
         grow = np.clip(grow, 0.2, 5.0)
+        too_far = finite & (move > 1.5 * max_step)
+        grow = np.where(too_far, np.minimum(grow, 0.9 * max_step / np.where(too_far, move, 1.0)), grow)
         new_dt = dta * np.where(finite, grow, 0.25)
         sp = np.hypot(kx[6], ky[6])
         cap = np.where(np.isfinite(sp) & (sp > 0), max_step / np.where(sp > 0, sp, 1.0), np.inf)
