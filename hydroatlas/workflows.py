@@ -232,6 +232,9 @@ def make_interpolator(method: str, xy, z, *, variogram: str = "spherical", nugge
             v = Variogram(variogram, nugget=nugget or 0.0, sill=sill, range=range_)
         else:
             target = np.asarray(z, float)
+            if np.ptp(target) <= 1e-12 * float(np.max(np.abs(target))):
+                raise InsufficientDataError("all values are equal: no variogram can be fitted "
+                                            "(use IDW, or fix the variogram parameters)")
             if method == "uk":  # the drift would inflate the raw variogram: fit it on trend residuals
                 a = np.column_stack([np.ones(len(xy)), xy - xy.mean(axis=0)])
                 target = target - a @ np.linalg.lstsq(a, target, rcond=None)[0]

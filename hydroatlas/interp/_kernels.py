@@ -295,9 +295,12 @@ def build_systems(rep, iso, xy, z, code, nugget, psill, rng, n_drift, cx, cy, sc
 
 
 @njit(cache=True, parallel=True)
-def apply_systems(q, pts, count, group, rep_idx, ainv, alpha, code, nugget, psill, rng, n_drift,
+def apply_systems(q, q_raw, pts, count, group, rep_idx, ainv, alpha, code, nugget, psill, rng, n_drift,
                   cx, cy, scale, min_points):
     """Estimate and kriging variance of each query point from its group's inverted system.
+
+    ``q`` holds the targets in isotropic coordinates (for distances), ``q_raw`` in
+    the original ones (for the drift).
 
     ``ainv[g]`` is the inverse of the (k + n_drift) square kriging matrix of
     group g (dummy rows for sets smaller than k), ``alpha[g] = ainv[g] @ [z; 0]``.
@@ -322,9 +325,9 @@ def apply_systems(q, pts, count, group, rep_idx, ainv, alpha, code, nugget, psil
             dy = pts[p, 1] - q[c, 1]
             b[t] = gamma_scalar(np.sqrt(dx * dx + dy * dy), code, nugget, psill, rng)
         b[k] = 1.0
-        if n_drift == 3:
-            b[k + 1] = (q[c, 0] - cx) / scale
-            b[k + 2] = (q[c, 1] - cy) / scale
+        if n_drift == 3:  # the drift is in the original coordinates, as in build_systems
+            b[k + 1] = (q_raw[c, 0] - cx) / scale
+            b[k + 2] = (q_raw[c, 1] - cy) / scale
         e = 0.0
         for i in range(s):
             e += b[i] * alpha[g, i]

@@ -14,6 +14,8 @@ distinct set's system is inverted once and applied to all its targets.
 
 from __future__ import annotations
 
+import numbers
+
 import numpy as np
 from scipy.linalg import lu_factor, lu_solve
 
@@ -47,7 +49,7 @@ class _Kriging:
                                                and self.neighbors >= self.min_points):
             raise ParameterError(f"The 'neighbors' parameter of {owner} must be an int >= {self.min_points} "
                                  f"or None. Got {self.neighbors!r} instead.")
-        if self.radius is not None and not (isinstance(self.radius, (int, float)) and self.radius > 0):
+        if self.radius is not None and not (isinstance(self.radius, numbers.Real) and self.radius > 0):
             raise ParameterError(f"The 'radius' parameter of {owner} must be a float > 0 or None. "
                                  f"Got {self.radius!r} instead.")
 
@@ -174,7 +176,7 @@ class _Kriging:
                 if len(members) >= self.min_points_local:
                     ainv[g], alpha[g] = self._pinv_system(members, rep.shape[1])
         est, var = _kernels.apply_systems(
-            iso, self.iso_, count, group, rep, ainv, alpha, v.code, v.nugget, v.partial_sill, v.range,
+            iso, np.ascontiguousarray(q), self.iso_, count, group, rep, ainv, alpha, v.code, v.nugget, v.partial_sill, v.range,
             self.n_drift, float(self.center_[0]), float(self.center_[1]), self.scale_, self.min_points_local)
         for c in np.flatnonzero(lone):
             est[c], var[c] = self._solve_one(q[c], idx[c, : count[c]])

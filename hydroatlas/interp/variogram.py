@@ -195,9 +195,13 @@ class Variogram:
         if model not in MODELS:
             raise ParameterError(f"unknown variogram model {model!r}; expected one of {', '.join(MODELS)}")
         z = np.asarray(z, dtype=float)
-        if z.size and np.ptp(z) <= 1e-12 * max(1.0, float(np.max(np.abs(z)))):
+        if z.size and np.ptp(z) <= 1e-12 * float(np.max(np.abs(z))):
             raise InsufficientDataError("all values are equal: no variogram can be fitted "
                                         "(use IDW, or fix the variogram parameters)")
+        # fit in units of the data's standard deviation, so the result does not depend on the unit of z
+        unit = float(np.std(z)) or 1.0
+        z = z / unit
+        nugget = None if nugget is None else nugget / unit**2
         exp = cls.experimental_from(xy, z, n_lags=n_lags, max_lag=max_lag, angle=angle, ratio=ratio)
         if len(exp.lags) < 3:
             raise InsufficientDataError(f"only {len(exp.lags)} lag bins hold pairs; at least 3 are needed to fit")
@@ -227,7 +231,17 @@ class Variogram:
         lower, upper = np.array(lower, float), np.array(upper, float)
         room = upper - lower
         start = np.clip(start, lower + 1e-6 * room, upper - 1e-6 * room)
-        sol = least_squares(residuals, start, bounds=(lower, upper), x_scale="jac")
-        nug, psill, rng_ = unpack(sol.x)
+        # least squares from a few starting ranges; keep the best (the cost surface is not convex in the range)
+        best = None
+        for frac in (0.5, 0.15, 1.0, 2.0):
+            x0 = start.copy()
+            x0[-1] = np.clip(exp.max_lag * frac, lower[-1] + 1e-6 * room[-1], upper[-1] - 1e-6 * room[-1])
+            sol = least_squares(residuals, x0, bounds=(lower, upper), x_scale="jac", max_nfev=2000,
+                                xtol=1e-12, ftol=1e-12, gtol=1e-12)
+            if best is None or sol.cost < best.cost:
+                best = sol
+        nug, psill, rng_ = unpack(best.x)
         psill = max(psill, 1e-12 * scale)
-        return cls(model, float(nug), float(nug + psill), float(rng_), angle, ratio, experimental=exp)
+        exp = ExperimentalVariogram(exp.lags, exp.gamma * unit**2, exp.counts, exp.max_lag)
+        return cls(model, float(nug * unit**2), float((nug + psill) * unit**2), float(rng_), angle, ratio,
+                   experimental=exp)
