@@ -16,7 +16,7 @@ import pandas as pd
 
 from . import workflows
 from .errors import HydroatlasError
-from .quantities import known_units
+from .quantities import RATE_UNITS, known_units
 from .stats import PER_CHOICES
 from .store import open_store
 from .store.importers import KINDS
@@ -328,6 +328,81 @@ def paths(store, unit, porosity, backward, k_source, surfaces, seed_spacing, cap
     click.echo(result["table"].to_string(index=False, float_format=lambda v: f"{v:.4g}"))
     click.echo(f"Caution: {workflows.KARST_WARNING}")
     for kind, path in result["files"].items():
+        click.echo(f"  {kind}: {path}")
+
+
+def _parse_rates(values):
+    out = {}
+    for item in values:
+        if "=" not in item:
+            raise click.BadParameter(f"{item!r} is not WELL=Q", param_hint="--rate")
+        wid, q = item.split("=", 1)
+        try:
+            out[wid.strip()] = float(q)
+        except ValueError:
+            raise click.BadParameter(f"{item!r}: {q!r} is not a number", param_hint="--rate") from None
+    return out
+
+
+def _parse_new_wells(values):
+    out = []
+    for n, item in enumerate(values, start=1):
+        parts = item.split(",")
+        try:
+            x, y, q = (float(p) for p in parts[-3:])
+        except ValueError:
+            raise click.BadParameter(f"{item!r} is not [NAME,]X,Y,Q", param_hint="--new-well") from None
+        if len(parts) not in (3, 4):
+            raise click.BadParameter(f"{item!r} is not [NAME,]X,Y,Q", param_hint="--new-well")
+        out.append((parts[0] if len(parts) == 4 else f"proposed-{n}", x, y, q))
+    return out
+
+
+@main.command()
+@click.argument("store")
+@click.option("--unit", required=True, help="Unit code (its head surface must exist).")
+@click.option("--days", type=float, required=True, help="Pumping duration in days.")
+@click.option("--storativity", "-S", type=float, required=True, help="Storage coefficient S (> 0).")
+@click.option("--rate", "rates", multiple=True, help="WELL=Q: rate of a stored well (replaces its stored rate).")
+@click.option("--new-well", "new_wells", multiple=True, help="[NAME,]X,Y,Q: a proposed well (store CRS).")
+@click.option("--rate-unit", type=click.Choice(list(RATE_UNITS)), default="m3/d", show_default=True)
+@click.option("--transmissivity", "-T", type=float, default=None,
+              help="T in m2/d (default: the unit's geometric-mean K times its mean thickness).")
+@click.option("--threshold", type=float, default=0.5, show_default=True,
+              help="List springs and monitoring zones losing more head than this (store length unit).")
+@click.option("--surfaces", default=None, type=click.Path(file_okay=False), help="Folder of the surfaces.")
+@click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False), help="Output folder.")
+def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transmissivity, threshold, surfaces, out):
+    """Theis drawdown of the unit's pumping wells, superposed on its head surface.
+
+    Uses the stored current pumping rates (records without an end date) of wells
+    screened in the unit, changed or added with --rate and --new-well. Writes
+    OUT/<unit>_drawdown.tif, OUT/<unit>_head_drawdown.tif (head minus drawdown),
+    OUT/<unit>_drawdown_impacts.csv (springs and monitoring zones above the
+    threshold) and a JSON sidecar.
+
+    Caution: results are screening-level estimates for planning and model set-up,
+    not a substitute for site-specific investigation or for the judgement of a
+    licensed professional geoscientist or engineer; well construction, testing and
+    pumping are governed by local rules and permits. Theis assumes a uniform,
+    infinite aquifer: boundaries, leakage and karst conduits change real drawdown.
+
+    Example: hydroatlas drawdown district.gpkg --unit ULS --days 365 -S 0.001 --rate ZP-031=2000
+    """
+    with open_store(store) as s:
+        res = workflows.drawdown_scenario(s, unit, days=days, storativity=storativity, rates=_parse_rates(rates),
+                                          new_wells=_parse_new_wells(new_wells), rate_unit=rate_unit,
+                                          transmissivity=transmissivity, surfaces=surfaces, out=out,
+                                          threshold=threshold)
+    click.echo(f"{len(res['wells'])} pumping wells, {days:g} d, T = {res['transmissivity_m2_per_d']:.4g} m2/d, "
+               f"S = {storativity:g}; largest drawdown {res['max_drawdown']:.3g} {res['length_unit']}")
+    imp = res["impacts"]
+    if imp.empty:
+        click.echo(f"no spring or monitoring zone loses more than {threshold:g} {res['length_unit']}")
+    else:
+        click.echo(imp[["kind", "id", "zone_id", "drawdown"]].to_string(index=False, na_rep="",
+                                                                        float_format=lambda v: f"{v:.3g}"))
+    for kind, path in res["files"].items():
         click.echo(f"  {kind}: {path}")
 
 

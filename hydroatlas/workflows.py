@@ -608,3 +608,146 @@ def _contributing_areas(store: Store, unit: str, field, grid, head, springs, sin
                              "p90_days": float(np.percentile(tt, 90)) if len(tt) else None})
     ca = gpd.GeoDataFrame(polys, geometry="geometry", crs=store.settings.crs)
     return ca, pd.DataFrame(rows_out)
+
+
+# -- pumping scenarios (SPEC 2.9) --------------------------------------------------
+def _unit_thickness_m(store: Store, unit: str) -> float:
+    units = store.read("units")
+    members = _unit_members(units, unit)
+    picks = store.read("picks")
+    picks = picks[picks["unit"].isin(members)]
+    if picks.empty:
+        raise InsufficientDataError(f"unit {unit} has no picks; its thickness (for T = K b) is unknown; "
+                                    "give --transmissivity")
+    per_well = (picks["bottom_depth"] - picks["top_depth"]).groupby(picks["well_id"]).sum()
+    return float(per_well.mean()) * _length_to_m(store)
+
+
+def active_pumping(store: Store, unit: str) -> pd.DataFrame:
+    """Pumping wells of a unit with their current rate (m3/d): records without an end, latest start per zone."""
+    rec = store.read("pumping")
+    if rec.empty:
+        return pd.DataFrame(columns=["well_id", "rate_m3d"])
+    rec = rec[rec["end"].isna()].sort_values("start").groupby(["well_id", "zone_id"]).tail(1)
+    asg = zone_assignment(store)
+    members = _unit_members(store.read("units"), unit)
+    zone_unit = {(w, z): u for w, z, u in asg[["well_id", "zone_id", "unit"]].itertuples(index=False)}
+    well_units = asg.groupby("well_id")["unit"].agg(set).to_dict()
+    keep = [((zone_unit.get((w, z)) in members) if z else bool(well_units.get(w, set()) & members))
+            for w, z in rec[["well_id", "zone_id"]].itertuples(index=False)]
+    rec = rec[keep]
+    return rec.groupby("well_id", as_index=False)["rate_m3d"].sum()
+
+
+def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: float, rates: dict | None = None,
+                      new_wells: list | None = None, rate_unit: str = "m3/d", transmissivity: float | None = None,
+                      surfaces=None, out=".", threshold: float = 0.5, well_radius_m: float = 0.1) -> dict:
+    """Superposed Theis drawdown of the unit's pumping wells over its head surface.
+
+    Parameters
+    ----------
+    days : float
+        Pumping duration (d), > 0.
+    storativity : float
+        Storage coefficient S (> 0).
+    rates : dict, optional
+        Well id -> rate in ``rate_unit``; replaces (or adds) the stored current rate of that well.
+    new_wells : list of (label, x, y, rate), optional
+        Proposed wells (store CRS, rate in ``rate_unit``).
+    transmissivity : float, optional
+        T in m2/d; default the unit's geometric-mean K times its mean picked thickness.
+    threshold : float
+        Springs and monitoring zones with more drawdown than this (store length unit) are listed.
+
+    Writes OUT/<unit>_drawdown.tif, OUT/<unit>_head_drawdown.tif, OUT/<unit>_drawdown_impacts.csv
+    and OUT/<unit>_drawdown.json.
+    """
+    from . import pumping
+    from .export.rasters import write_geotiff, write_sidecar
+    from .quantities import RATE_UNITS, normalize_unit
+
+    if not (isinstance(days, (int, float)) and days > 0):
+        raise ParameterError(f"--days must be > 0; got {days}")
+    if not (isinstance(storativity, (int, float)) and storativity > 0):
+        raise ParameterError(f"storativity S must be > 0; got {storativity}")
+    if transmissivity is not None and not transmissivity > 0:
+        raise ParameterError(f"transmissivity T must be > 0; got {transmissivity}")
+    crs_to_m = _crs_to_m(store)
+    len_m = _length_to_m(store)
+    q_factor = RATE_UNITS[normalize_unit(rate_unit, "rate")]
+    out = Path(out)
+    folder = Path(surfaces) if surfaces is not None else out
+    grid, head = read_surface(folder, unit, "head", store.location)
+    wells = store.read("wells", ["well_id", "x", "y"]).set_index("well_id")
+    current = active_pumping(store, unit).set_index("well_id")["rate_m3d"].to_dict()
+    for wid, q in (rates or {}).items():
+        if wid not in wells.index:
+            raise ParameterError(f"--rate names well {wid!r}, which is not in the store (use --new-well X,Y,Q "
+                                 "for a proposed well)")
+        current[wid] = float(q) * q_factor
+    table = [(wid, float(wells.loc[wid, "x"]), float(wells.loc[wid, "y"]), q, "stored") for wid, q in current.items()]
+    for label, x, y, q in (new_wells or []):
+        table.append((label, float(x), float(y), float(q) * q_factor, "proposed"))
+    if not table:
+        raise ParameterError(f"no pumping well of unit {unit}: import pumping records or give --rate / --new-well")
+    pw = pd.DataFrame(table, columns=["well_id", "x", "y", "rate_m3d", "status"])
+    xmin, ymin, xmax, ymax = grid.bounds
+    outside = ~pw["x"].between(xmin, xmax) | ~pw["y"].between(ymin, ymax)
+    if outside.any():
+        raise ParameterError(f"pumping well(s) {', '.join(pw.loc[outside, 'well_id'])} lie outside the head "
+                             f"surface grid of unit {unit}")
+    if transmissivity is None:
+        row = next(r for r in unit_stats(store, k_unit="m/d") if r["unit"] == unit)
+        if row["k_geomean"] is None:
+            raise InsufficientDataError(f"unit {unit} has no K tests; give --transmissivity")
+        b = _unit_thickness_m(store, unit)
+        transmissivity = row["k_geomean"] * b
+        t_info = {"source": "unit geometric-mean K x mean picked thickness", "k_m_per_d": row["k_geomean"],
+                  "thickness_m": b}
+    else:
+        t_info = {"source": "given"}
+    wxy = pw[["x", "y"]].to_numpy(float) * crs_to_m
+    s_m = pumping.superpose_drawdown_grid(grid.x_centers() * crs_to_m, grid.y_centers() * crs_to_m, wxy,
+                                          pw["rate_m3d"].to_numpy(float), float(days), T=float(transmissivity),
+                                          S=float(storativity), r_min=well_radius_m)
+    s_len = s_m / len_m
+    s_len = np.where(np.isfinite(head), s_len, np.nan)
+    out.mkdir(parents=True, exist_ok=True)
+    dd_tif = write_geotiff(out / f"{unit}_drawdown.tif", grid, [s_len], crs=store.settings.crs,
+                           descriptions=[f"drawdown ({store.settings.length_unit})"], tags={"caution": CAUTION})
+    hd_tif = write_geotiff(out / f"{unit}_head_drawdown.tif", grid, [head - s_len], crs=store.settings.crs,
+                           descriptions=[f"head after {days:g} d of pumping ({store.settings.length_unit})"],
+                           tags={"caution": CAUTION})
+    # springs and monitoring zones of the unit: exact drawdown at their locations
+    members = _unit_members(store.read("units"), unit)
+    springs = store.read("springs", ["spring_id", "x", "y", "unit"])
+    springs = springs[springs["unit"].isna() | springs["unit"].isin(members)]
+    asg = zone_assignment(store)
+    zones = asg[asg["unit"].isin(members) & ~asg["well_id"].isin(set(pw["well_id"]))]
+    points = pd.concat([
+        pd.DataFrame({"kind": "spring", "id": springs["spring_id"], "zone_id": None, "x": springs["x"],
+                      "y": springs["y"]}),
+        pd.DataFrame({"kind": "monitoring zone", "id": zones["well_id"], "zone_id": zones["zone_id"],
+                      "x": zones["x"], "y": zones["y"]})], ignore_index=True)
+    if not points.empty:
+        points["drawdown"] = pumping.superpose_drawdown(points[["x", "y"]].to_numpy(float) * crs_to_m, wxy,
+                                                        pw["rate_m3d"].to_numpy(float), float(days),
+                                                        T=float(transmissivity), S=float(storativity),
+                                                        r_min=well_radius_m) / len_m
+    else:
+        points["drawdown"] = []
+    impacts = points[points["drawdown"] > threshold].sort_values("drawdown", ascending=False)
+    impacts_csv = out / f"{unit}_drawdown_impacts.csv"
+    impacts.to_csv(impacts_csv, index=False)
+    side = {"unit": unit, "days": days, "storativity": storativity, "transmissivity_m2_per_d": transmissivity,
+            "transmissivity": t_info, "wells": pw.to_dict(orient="records"), "rate_unit_of_wells": "m3/d",
+            "threshold": threshold, "length_unit": store.settings.length_unit,
+            "method": "Theis (1935) superposition, no image wells (no boundaries)",
+            "max_drawdown": float(np.nanmax(s_len)) if np.isfinite(s_len).any() else None,
+            "caution": CAUTION + " Theis assumes a uniform, infinite, confined aquifer; boundaries, leakage and "
+                       "karst conduits change real drawdown.",
+            "files": {"drawdown": str(dd_tif), "head": str(hd_tif), "impacts": str(impacts_csv)}}
+    write_sidecar(out / f"{unit}_drawdown.json", side)
+    side["files"]["sidecar"] = str(out / f"{unit}_drawdown.json")
+    side["impacts"] = impacts
+    return side

@@ -1,0 +1,177 @@
+"""`hydroatlas paths` and `hydroatlas drawdown` end to end on a planar head field with a spring and pumping."""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pyogrio
+import pytest
+import rasterio
+from pyproj import Transformer
+
+from hydroatlas.pumping import theis_drawdown
+
+from conftest import CRS, cli, write_csv
+
+X0, Y0 = 610000.0, 4100000.0
+A, B = -0.004, 0.0  # head falls toward +x: flow east
+K_MD, POROSITY = 8.0, 0.05
+
+
+def plane(x, y):
+    return 300.0 + A * (x - X0) + B * (y - Y0)
+
+
+def polygon_feature(area_id, kind, box, unit=None):
+    tr = Transformer.from_crs(CRS, "EPSG:4326", always_xy=True)
+    x1, y1, x2, y2 = box
+    ring = [list(tr.transform(x, y)) for x, y in [(x1, y1), (x2, y1), (x2, y2), (x1, y2), (x1, y1)]]
+    return {"type": "Feature", "properties": {"area_id": area_id, "kind": kind, "unit": unit},
+            "geometry": {"type": "Polygon", "coordinates": [ring]}}
+
+
+@pytest.fixture
+def flow_store(empty_store, tmp_path, runner):
+    rng = np.random.default_rng(2)
+    xs, ys = X0 + rng.uniform(0, 6000, 25), Y0 + rng.uniform(0, 4000, 25)
+    rows = {
+        "units": [["code", "name", "rank", "role"], ["AQ", "aquifer", 1, "aquifer"]],
+        "wells": [["well_id", "x", "y", "ground_elev", "total_depth", "kind"]],
+        "picks": [["well_id", "unit", "top_depth", "bottom_depth"]],
+        "zones": [["well_id", "zone_id", "top_depth", "bottom_depth"]],
+        "heads": [["well_id", "zone_id", "measured_at", "head"]],
+        "ktests": [["well_id", "zone_id", "tested_on", "method", "k", "k_unit"]],
+    }
+    for i, (x, y) in enumerate(zip(xs, ys)):
+        w = f"W{i:02d}"
+        rows["wells"].append([w, f"{x:.3f}", f"{y:.3f}", 400, 150, "monitoring"])
+        rows["picks"].append([w, "AQ", 0, 150])
+        rows["zones"].append([w, "S", 50, 60])
+        rows["heads"].append([w, "S", "2024-01-01", f"{plane(round(x, 3), round(y, 3)):.9f}"])
+        rows["ktests"].append([w, "S", "2024-01-01", "slug", K_MD, "m/d"])
+    for kind, r in rows.items():
+        assert cli(runner, "import", empty_store, kind, write_csv(tmp_path / f"{kind}.csv", r)).exit_code == 0
+    return empty_store
+
+
+def add_spring_and_recharge(store, tmp_path, runner):
+    sx, sy = X0 + 5000.0, Y0 + 2000.0
+    sp = write_csv(tmp_path / "springs.csv", [["spring_id", "x", "y", "elev", "unit"],
+                                              ["SPR", sx, sy, f"{plane(sx, sy):.9f}", "AQ"]])
+    assert cli(runner, "import", store, "springs", sp).exit_code == 0
+    fc = {"type": "FeatureCollection", "features": [
+        polygon_feature("REC", "recharge", (X0 + 800, Y0 + 1700, X0 + 1400, Y0 + 2300), "AQ")]}
+    path = tmp_path / "areas.geojson"
+    path.write_text(json.dumps(fc))
+    assert cli(runner, "import", store, "areas", path).exit_code == 0
+    return sx, sy
+
+
+def make_surface(store, out, runner):
+    res = cli(runner, "surface", store, "--unit", "AQ", "--method", "uk", "--variogram", "exponential",
+              "--sill", 1.0, "--range", 3000, "--cell", 50, "--out", out)
+    assert res.exit_code == 0, res.output
+
+
+def test_paths_forward_and_backward(flow_store, tmp_path, runner):
+    """Analytic (uniform gradient): straight paths east at v = K i / n; travel time = distance / v."""
+    out = tmp_path / "out"
+    sx, sy = add_spring_and_recharge(flow_store, tmp_path, runner)
+    make_surface(flow_store, out, runner)
+    res = cli(runner, "paths", flow_store, "--unit", "AQ", "--porosity", POROSITY, "--capture-radius", 200,
+              "--seed-spacing", 50, "--out", out)
+    assert res.exit_code == 0, res.output
+    assert "Caution" in res.output and "karst" in res.output
+    lines = pyogrio.read_dataframe(out / "layers.gpkg", layer="pathlines")
+    table = pd.read_csv(out / "AQ_pathways.csv")
+    assert table["share"].sum() == pytest.approx(1.0)
+    v = K_MD * abs(A) / POROSITY  # m/d
+    to_spring = lines[lines["end_kind"] == "sink"]
+    assert len(to_spring) > 0 and set(to_spring["end_id"]) == {"SPR"}
+    for geom, days in zip(to_spring.geometry, to_spring["travel_days"]):
+        start = np.array(geom.coords[0])
+        end = np.array(geom.coords[-1])
+        assert abs(end[1] - start[1]) < 1e-6  # due east
+        assert (end[0] - start[0]) / v == pytest.approx(days, rel=1e-6)
+        assert np.hypot(end[0] - sx, end[1] - sy) <= 200 + 1e-6
+    side = json.loads((out / "AQ_pathways.json").read_text())
+    assert "karst" in side["karst_warning"] and side["porosity"] == POROSITY
+    res = cli(runner, "paths", flow_store, "--unit", "AQ", "--porosity", POROSITY, "--capture-radius", 200,
+              "--backward", "--out", out)
+    assert res.exit_code == 0, res.output
+    ca = pyogrio.read_dataframe(out / "layers.gpkg", layer="contributing_areas")
+    spr = ca[ca["spring_id"] == "SPR"].geometry.iloc[0]
+    # in uniform flow the spring's catchment is the band of the capture radius upgradient of it
+    assert spr.bounds[1] == pytest.approx(sy - 200, abs=60) and spr.bounds[3] == pytest.approx(sy + 200, abs=60)
+    assert spr.bounds[2] <= sx + 260
+    back = pd.read_csv(out / "AQ_pathways.csv")
+    assert back.loc[back["recharge_area"] == "REC", "share"].iloc[0] > 0.4
+
+
+def test_paths_bad_input(flow_store, tmp_path, runner):
+    out = tmp_path / "out"
+    res = cli(runner, "paths", flow_store, "--unit", "AQ", "--porosity", 0.1, "--out", out)
+    assert res.exit_code == 2 and "hydroatlas surface" in res.output and "--quantity head" in res.output
+    make_surface(flow_store, out, runner)
+    for porosity in (0, 1.5, -0.1):
+        res = cli(runner, "paths", flow_store, "--unit", "AQ", "--porosity", porosity, "--out", out)
+        assert res.exit_code == 2 and "porosity" in res.output
+    res = cli(runner, "paths", flow_store, "--unit", "AQ", "--porosity", 0.1, "--out", out)
+    assert res.exit_code == 2 and "no spring" in res.output
+    sp = write_csv(tmp_path / "sp.csv", [["spring_id", "x", "y", "elev"], ["S1", X0 + 5000, Y0 + 2000, 280]])
+    cli(runner, "import", flow_store, "springs", sp)
+    res = cli(runner, "paths", flow_store, "--unit", "AQ", "--porosity", 0.1, "--out", out)
+    assert res.exit_code == 2 and "no recharge area" in res.output
+    res = cli(runner, "paths", flow_store, "--unit", "AQ", "--porosity", 0.1, "--k-source", "surface", "--out", out)
+    assert res.exit_code == 2 and "--quantity logk" in res.output
+
+
+def test_drawdown_scenario(flow_store, tmp_path, runner):
+    """The drawdown raster equals Theis (scipy exp1) at each cell; head after pumping = head - drawdown."""
+    out = tmp_path / "out"
+    make_surface(flow_store, out, runner)
+    wx, wy, q, T, S, days = X0 + 3000.0, Y0 + 2000.0, 1500.0, 400.0, 1e-3, 100.0
+    sp = write_csv(tmp_path / "sp.csv", [["spring_id", "x", "y", "elev"], ["S1", wx + 500, wy, 280]])
+    cli(runner, "import", flow_store, "springs", sp)
+    res = cli(runner, "drawdown", flow_store, "--unit", "AQ", "--days", days, "-S", S, "-T", T,
+              "--new-well", f"P1,{wx},{wy},{q}", "--threshold", 0.01, "--out", out)
+    assert res.exit_code == 0, res.output
+    with rasterio.open(out / "AQ_drawdown.tif") as r:
+        dd = r.read(1, masked=True)
+        rows, cols = np.nonzero(~dd.mask)
+        xs, ys = rasterio.transform.xy(r.transform, rows, cols)
+    with rasterio.open(out / "AQ_head.tif") as r:
+        head = r.read(1, masked=True)
+    with rasterio.open(out / "AQ_head_drawdown.tif") as r:
+        after = r.read(1, masked=True)
+    dist = np.hypot(np.asarray(xs) - wx, np.asarray(ys) - wy)
+    expected = theis_drawdown(np.maximum(dist, 0.1), days, Q=q, T=T, S=S)
+    assert np.allclose(dd[rows, cols], expected, rtol=1e-5, atol=1e-6)
+    assert np.allclose(after[rows, cols], head[rows, cols] - dd[rows, cols], atol=1e-3)  # float32 rasters
+    impacts = pd.read_csv(out / "AQ_drawdown_impacts.csv")
+    s1 = impacts[impacts["id"] == "S1"]["drawdown"].iloc[0]
+    assert s1 == pytest.approx(theis_drawdown(500.0, days, Q=q, T=T, S=S), rel=1e-6)
+    side = json.loads((out / "AQ_drawdown.json").read_text())
+    assert "licensed professional" in side["caution"] and side["transmissivity"]["source"] == "given"
+    # T from the unit: geometric-mean K times the mean picked thickness (8 m/d x 150 m)
+    res = cli(runner, "drawdown", flow_store, "--unit", "AQ", "--days", days, "-S", S,
+              "--new-well", f"{wx},{wy},{q}", "--out", out)
+    assert res.exit_code == 0 and "T = 1200 m2/d" in res.output
+
+
+def test_drawdown_bad_input(flow_store, tmp_path, runner):
+    out = tmp_path / "out"
+    args = ["drawdown", flow_store, "--unit", "AQ", "--days", 10, "--out", out]
+    res = cli(runner, *args, "-S", 1e-3, "--new-well", f"{X0},{Y0},10")
+    assert res.exit_code == 2 and "hydroatlas surface" in res.output
+    make_surface(flow_store, out, runner)
+    cases = [(["-S", 0, "--new-well", f"{X0 + 10},{Y0 + 10},10"], "S must be > 0"),
+             (["-S", 1e-3, "-T", -5, "--new-well", f"{X0 + 10},{Y0 + 10},10"], "T must be > 0"),
+             (["-S", 1e-3, "--new-well", f"{X0 - 90000},{Y0},10"], "outside the head surface grid"),
+             (["-S", 1e-3], "no pumping well"),
+             (["-S", 1e-3, "--rate", "NOPE=5"], "not in the store"),
+             (["-S", 1e-3, "--rate", "W01"], "WELL=Q")]
+    for extra, message in cases:
+        res = cli(runner, *args, *extra)
+        assert res.exit_code == 2, (extra, res.output)
+        assert message in res.output, (extra, res.output)
