@@ -406,6 +406,48 @@ def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transm
         click.echo(f"  {kind}: {path}")
 
 
+@main.command(name="map")
+@click.argument("store")
+@click.option("--unit", default=None, help="Unit whose K, head contours and results are shown (default: top aquifer).")
+@click.option("--k-unit", type=click.Choice(known_units("hydraulic conductivity")), default="m/d", show_default=True)
+@click.option("--surfaces", default=None, type=click.Path(file_okay=False),
+              help="Folder of surfaces and layers.gpkg (default: the folder of --out).")
+@click.option("--tiles", default=None, help="Basemap URL template (needs internet); none by default.")
+@click.option("--out", default="map.html", show_default=True, type=click.Path(dir_okay=False))
+def map_(store, unit, k_unit, surfaces, tiles, out):
+    """One self-contained HTML web map that works offline.
+
+    Wells coloured by K, head contours, flow arrows, kriging standard deviation,
+    pumping wells sized by rate, springs, recharge areas, pathlines coloured by
+    travel time, contributing areas and drawdown contours, each switchable.
+
+    Caution: results are screening-level estimates for planning and model set-up,
+    not a substitute for site-specific investigation or for the judgement of a
+    licensed professional geoscientist or engineer; well construction, testing and
+    pumping are governed by local rules and permits.
+    """
+    with open_store(store) as s:
+        path = workflows.build_map(s, unit=unit, out=out, surfaces=surfaces, k_unit=k_unit, tiles=tiles)
+    click.echo(f"map: {path}")
+
+
+@main.command()
+@click.argument("store")
+@click.option("--k-unit", type=click.Choice(known_units("hydraulic conductivity")), default="m/d", show_default=True)
+@click.option("--surfaces", default=None, type=click.Path(file_okay=False), help="Folder of surfaces (default --out).")
+@click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False))
+def layers(store, k_unit, surfaces, out):
+    """Vector layers to OUT/layers.gpkg and OUT/geojson/*.geojson (RFC 7946, WGS 84).
+
+    wells (with per-unit K columns), zones (points at mid-depth), head contours, and
+    the flow arrows, pathlines and contributing areas made by 'surface' and 'paths'.
+    """
+    with open_store(store) as s:
+        files = workflows.export_layers(s, out=out, surfaces=surfaces, k_unit=k_unit)
+    for kind, path in files.items():
+        click.echo(f"  {kind}: {path}")
+
+
 @main.command()
 @click.option("--out", default="demo_out", show_default=True, type=click.Path(file_okay=False),
               help="Folder for the demo store and its outputs.")

@@ -78,6 +78,8 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
         bwd = workflows.trace_paths(store, "ULS", porosity=DEMO_POROSITY, out=surfaces, backward=True)
         scenario = workflows.drawdown_scenario(store, "ULS", days=365, storativity=0.002, out=surfaces,
                                                new_wells=[("PROPOSED-1", 620_000.0, 4_106_000.0, 3000.0)])
+        map_path = workflows.build_map(store, unit="ULS", out=out / "map.html", surfaces=surfaces)
+        layer_files = workflows.export_layers(store, out=out, surfaces=surfaces)
     finally:
         store.close()
     echo("\nUnit statistics (K in m/d, every test counts once):")
@@ -95,5 +97,7 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
     echo(f"\nPumping scenario (ULS, 365 d, S = 0.002, one proposed well of 3000 m3/d): largest drawdown "
          f"{scenario['max_drawdown']:.2f} m; {len(scenario['impacts'])} springs/zones lose more than "
          f"{scenario['threshold']} m -> {scenario['files']['impacts']}")
+    echo(f"\nWeb map (offline, self-contained): {map_path}")
+    echo(f"GIS layers: {layer_files['gpkg']} and {out / 'geojson'}")
     echo(f"store: {store_path}")
     return {"store": str(store_path), "stats": stats_rows, "findings": findings}

@@ -338,7 +338,7 @@ def _domain_polygons(store: Store, unit: str):
     return dom if not dom.empty else None
 
 
-def write_gradients(store: Store, unit: str, grid, head, out, *, crs_to_m: float, arrows_across: int = 25) -> dict:
+def write_gradients(store: Store, unit: str, grid, head, out, *, crs_to_m: float, arrows_across: int = 18) -> dict:
     """Gradient magnitude / flow azimuth raster and a flow_arrows point layer from a head grid."""
     import geopandas as gpd
     import pyogrio
@@ -522,10 +522,12 @@ def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=N
                             "travel_days": res.time, "travel_years": res.time / 365.25},
                            geometry=lines, crs=store.settings.crs)
     gpkg = out / "layers.gpkg"
+    gdf = _keep_other_rows(gpkg, "pathlines", gdf, (gdf["unit"].iloc[0], direction), ("unit", "direction"))
     write_layer(gpkg, "pathlines", gdf, description=KARST_WARNING)
     files = {"pathlines": f"{gpkg}:pathlines"}
     if backward:
         ca, table = _contributing_areas(store, unit, field, grid, head, springs, sink_xy, radius, t_max)
+        ca = _keep_other_rows(gpkg, "contributing_areas", ca, (unit,), ("unit",))
         write_layer(gpkg, "contributing_areas", ca, description=KARST_WARNING)
         files["contributing_areas"] = f"{gpkg}:contributing_areas"
     else:
@@ -541,6 +543,25 @@ def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=N
     files["sidecar"] = str(out / f"{unit}_pathways.json")
     side["table"] = table
     return side
+
+
+def _keep_other_rows(gpkg: Path, layer: str, new, key: tuple, columns: tuple):
+    """``new`` plus the rows of an existing layer whose ``columns`` differ from ``key`` (other units, directions)."""
+    import geopandas as gpd
+    import pyogrio
+
+    if not gpkg.exists() or layer not in {n for n, _ in pyogrio.list_layers(gpkg)}:
+        return new
+    old = pyogrio.read_dataframe(gpkg, layer=layer)
+    if not set(columns) <= set(old.columns):
+        return new
+    same = np.ones(len(old), bool)
+    for col, value in zip(columns, key):
+        same &= (old[col] == value).to_numpy()
+    old = old[~same]
+    if old.empty:
+        return new
+    return gpd.GeoDataFrame(pd.concat([old.to_crs(new.crs), new], ignore_index=True), crs=new.crs)
 
 
 def _forward_table(origin, end_label, time) -> pd.DataFrame:
@@ -751,3 +772,294 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
     side["files"]["sidecar"] = str(out / f"{unit}_drawdown.json")
     side["impacts"] = impacts
     return side
+
+
+# -- maps and GIS layers (SPEC 2.12) ------------------------------------------------
+SPRING_SVG = ("<svg width='18' height='18' viewBox='-10 -10 20 20'><path d='M0,-9 L9,0 L0,9 L-9,0 Z' "
+              "fill='#6baed6' stroke='#08306b' stroke-width='2'/></svg>")
+def _nice_levels(values, target: int = 12) -> np.ndarray:
+    v = np.asarray(values, float)
+    v = v[np.isfinite(v)]
+    if v.size == 0 or np.ptp(v) == 0:
+        return np.array([])
+    raw = np.ptp(v) / target
+    mag = 10 ** np.floor(np.log10(raw))
+    step = min((s * mag for s in (1, 2, 2.5, 5, 10) if s * mag >= raw), default=10 * mag)
+    return np.arange(np.ceil(v.min() / step) * step, v.max() + step * 1e-9, step)
+
+
+def contour_lines(grid, values, levels, crs):
+    """Contour lines of a grid as a GeoDataFrame (store CRS) with a ``level`` column."""
+    import contourpy
+    import geopandas as gpd
+    import shapely
+
+    z = np.ma.masked_invalid(np.asarray(values, float))
+    gen = contourpy.contour_generator(grid.x_centers(), grid.y_centers(), z, line_type="Separate")
+    rows = []
+    for level in levels:
+        for line in gen.lines(float(level)):
+            if len(line) >= 2:
+                rows.append({"level": float(level), "geometry": shapely.LineString(line)})
+    return gpd.GeoDataFrame(rows, columns=["level", "geometry"], geometry="geometry", crs=crs)
+
+
+def well_summaries(store: Store, *, k_unit: str = "m/d") -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Per well and unit: geometric-mean K and test count; per zone: unit, elevations, K and latest head."""
+    from .quantities import k_from_ms
+
+    asg = zone_assignment(store)
+    tests = tests_with_units(store, asg)
+    lg = np.log10(tests["k_ms"].to_numpy(float))
+    per_zone = pd.DataFrame({"well_id": tests["well_id"], "zone_id": tests["zone_id"], "lg": lg}) \
+        .groupby(["well_id", "zone_id"]).agg(lg=("lg", "mean"), n_tests=("lg", "size")).reset_index()
+    heads = store.read("heads", ["well_id", "zone_id", "measured_at", "head"])
+    latest = heads.sort_values("measured_at").groupby(["well_id", "zone_id"]).tail(1) \
+        .rename(columns={"measured_at": "latest_head_at", "head": "latest_head"})
+    zones = asg.merge(per_zone, on=["well_id", "zone_id"], how="left").merge(latest, on=["well_id", "zone_id"],
+                                                                           how="left")
+    zones["k"] = k_from_ms(10 ** zones["lg"].to_numpy(float), k_unit)
+    zones["k_unit"] = k_unit
+    per_unit = zones.dropna(subset=["lg", "unit"]).groupby(["well_id", "unit"]).agg(
+        lg=("lg", "mean"), n_tests=("n_tests", "sum")).reset_index()
+    per_unit["k"] = k_from_ms(10 ** per_unit["lg"].to_numpy(float), k_unit)
+    return per_unit, zones.drop(columns=["lg"])
+
+
+def export_layers(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") -> dict:
+    """Vector layers to OUT/layers.gpkg and OUT/geojson/<layer>.geojson (RFC 7946, WGS 84).
+
+    wells (with per-unit geometric-mean K and test counts as columns), zones (points at
+    mid-depth), head contours of every head surface found, and the flow_arrows, pathlines and
+    contributing_areas layers already written by `surface` and `paths`.
+    """
+    import geopandas as gpd
+    import pyogrio
+
+    from .export.layers import write_layer
+
+    out = Path(out)
+    folder = Path(surfaces) if surfaces is not None else out
+    crs = store.settings.crs
+    per_unit, zones = well_summaries(store, k_unit=k_unit)
+    wells = store.read("wells", ["well_id", "x", "y", "ground_elev", "total_depth", "kind", "name"])
+    for code in store.read("units").sort_values("rank")["code"]:
+        sub = per_unit[per_unit["unit"] == code].set_index("well_id")
+        wells[f"k_{code}"] = wells["well_id"].map(sub["k"])
+        wells[f"n_tests_{code}"] = wells["well_id"].map(sub["n_tests"]).fillna(0).astype(int)
+    wells["k_unit"] = k_unit
+    layers = {"wells": gpd.GeoDataFrame(wells, geometry=gpd.points_from_xy(wells["x"], wells["y"]), crs=crs)}
+    z = zones[["well_id", "zone_id", "unit", "assigned_by", "overlap_fraction", "straddles", "top_elev",
+               "bottom_elev", "mid_elev", "k", "k_unit", "n_tests", "latest_head", "latest_head_at", "x", "y"]].copy()
+    z["straddles"] = z["straddles"].astype(bool)
+    layers["zones"] = gpd.GeoDataFrame(z, geometry=gpd.points_from_xy(z["x"], z["y"]), crs=crs)
+    contours = []
+    for tif in sorted(folder.glob("*_head.tif")):
+        unit = tif.name[: -len("_head.tif")]
+        grid, head = read_surface(folder, unit, "head", store.location)
+        c = contour_lines(grid, head, _nice_levels(head), crs)
+        c["unit"] = unit
+        contours.append(c)
+    if contours:
+        layers["head_contours"] = gpd.GeoDataFrame(pd.concat(contours, ignore_index=True), crs=crs)
+    gpkg = out / "layers.gpkg"
+    for name, gdf in layers.items():
+        write_layer(gpkg, name, gdf)
+    src = folder / "layers.gpkg"
+    existing = {n for n, _ in pyogrio.list_layers(src)} if src.exists() else set()
+    for name in ("flow_arrows", "pathlines", "contributing_areas"):
+        if name in existing:
+            gdf = pyogrio.read_dataframe(src, layer=name)
+            if src.resolve() != gpkg.resolve():
+                write_layer(gpkg, name, gdf)
+            layers[name] = gdf
+    gj = out / "geojson"
+    gj.mkdir(parents=True, exist_ok=True)
+    files = {"gpkg": str(gpkg)}
+    for name, gdf in layers.items():
+        path = gj / f"{name}.geojson"
+        if path.exists():
+            path.unlink()
+        pyogrio.write_dataframe(gdf.to_crs(4326), path, driver="GeoJSON", layer_options={"RFC7946": "YES"})
+        files[name] = str(path)
+    return files
+
+
+def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces=None, k_unit: str = "m/d",
+              tiles: str | None = None) -> Path:
+    """One self-contained HTML map of the store and of the results found in ``surfaces``."""
+    import folium
+    import geopandas as gpd
+    import pyogrio
+    import rasterio
+    from rasterio.warp import Resampling, calculate_default_transform, reproject
+
+    from .export.webmap import (K_COLORMAP, TIME_COLORMAP, arrow_svg, geojson_text, hex_colors, legend_html,
+                                safe_text, write_webmap)
+    from .quantities import normalize_unit
+
+    k_unit = normalize_unit(k_unit, "hydraulic conductivity")
+    crs = store.settings.crs
+    units = store.read("units").sort_values("rank")
+    if unit is None:
+        aquifers = units[units["role"] == "aquifer"]["code"]
+        unit = aquifers.iloc[0] if len(aquifers) else units["code"].iloc[0]
+    _unit_members(units, unit)
+    out = Path(out)
+    folder = Path(surfaces) if surfaces is not None else out.parent
+    per_unit, zones = well_summaries(store, k_unit=k_unit)
+    wells = store.read("wells", ["well_id", "x", "y", "kind", "name"])
+    wells = wells.merge(per_unit[per_unit["unit"] == unit][["well_id", "k", "n_tests"]], on="well_id", how="left")
+    wgs = gpd.GeoDataFrame(wells, geometry=gpd.points_from_xy(wells["x"], wells["y"]), crs=crs).to_crs(4326)
+    center = (float(wgs.geometry.y.mean()), float(wgs.geometry.x.mean())) if len(wgs) else (0.0, 0.0)
+    lgk = np.log10(wells["k"].to_numpy(float))
+    finite = lgk[np.isfinite(lgk)]
+    lo, hi = (float(finite.min()), float(finite.max())) if finite.size else (0.0, 1.0)
+    colors = hex_colors(lgk, lo, hi, K_COLORMAP)
+    layers, legends = [], []
+
+    def add_wells(group):
+        for (_, w), geom, color in zip(wells.iterrows(), wgs.geometry, colors):
+            zs = zones[zones["well_id"] == w["well_id"]]
+            rows = "".join(
+                f"<tr><td>{safe_text(z.zone_id)}</td><td>{safe_text(z.unit)}</td>"
+                f"<td>{'' if not np.isfinite(z.k) else f'{z.k:.3g}'}</td>"
+                f"<td>{'' if not np.isfinite(z.latest_head) else f'{z.latest_head:.2f}'}</td>"
+                f"<td>{safe_text(z.latest_head_at)}</td></tr>" for z in zs.itertuples())
+            popup = (f"<b>{safe_text(w['well_id'])}</b> {safe_text(w['name'])}<br>{safe_text(w['kind'])}"
+                     f"<table class='ha-table'><tr><th>zone</th><th>unit</th><th>K ({safe_text(k_unit)})</th>"
+                     f"<th>latest head ({safe_text(store.settings.length_unit)})</th><th>on</th></tr>{rows}</table>")
+            has_k = np.isfinite(w["k"])
+            folium.CircleMarker([geom.y, geom.x], radius=7 if has_k else 4, color="#1d2b36", weight=1,
+                                fill=True, fill_color=color, fill_opacity=0.95,
+                                tooltip=safe_text(w["well_id"]), popup=folium.Popup(popup, max_width=420)
+                                ).add_to(group)
+    layers.append((f"Wells: K of {unit}", add_wells))
+    if finite.size:
+        legends.append(legend_html(f"Geometric-mean K of {unit} per well ({k_unit}, log scale)", lo, hi, K_COLORMAP,
+                                   fmt=lambda v: f"{10 ** v:.3g}"))
+    head_tif = folder / f"{unit}_head.tif"
+    if head_tif.is_file():
+        grid, head = read_surface(folder, unit, "head", store.location)
+        cont = contour_lines(grid, head, _nice_levels(head), crs).to_crs(4326)
+
+        def add_contours(group):
+            for geom, level in zip(cont.geometry, cont["level"]):
+                coords = [(y, x) for x, y in geom.coords]
+                folium.PolyLine(coords, color="#0b5563", weight=1.5, opacity=0.9,
+                                tooltip=f"head {level:g} {store.settings.length_unit}").add_to(group)
+                mid = coords[len(coords) // 2]
+                folium.Marker(mid, icon=folium.DivIcon(html=f"<div class='ha-label'>{level:g}</div>",
+                                                       icon_size=(40, 14), icon_anchor=(20, 7))).add_to(group)
+        layers.append((f"Head contours of {unit} ({store.settings.length_unit})", add_contours))
+        with rasterio.open(head_tif) as src:
+            if src.count >= 2:
+                std = src.read(2, masked=True).filled(np.nan)
+                dst_crs = "EPSG:4326"
+                transform, width, height = calculate_default_transform(src.crs, dst_crs, src.width, src.height,
+                                                                       *src.bounds)
+                warped = np.full((height, width), np.nan, dtype="float32")
+                reproject(std.astype("float32"), warped, src_transform=src.transform, src_crs=src.crs,
+                          dst_transform=transform, dst_crs=dst_crs, resampling=Resampling.bilinear,
+                          src_nodata=np.nan, dst_nodata=np.nan)
+                w_, n_ = transform * (0, 0)
+                e_, s_ = transform * (width, height)
+                fin = warped[np.isfinite(warped)]
+                if fin.size:
+                    from matplotlib import colormaps
+
+                    s0, s1 = float(fin.min()), float(fin.max())
+                    rgba = colormaps["Greys"]((warped - s0) / ((s1 - s0) or 1.0))
+                    rgba[..., 3] = np.where(np.isfinite(warped), 0.35, 0.0)
+
+                    def add_std(group, rgba=rgba, bounds=[[s_, w_], [n_, e_]]):
+                        folium.raster_layers.ImageOverlay(image=rgba, bounds=bounds, mercator_project=True,
+                                                          opacity=1.0).add_to(group)
+                    layers.append((f"Kriging standard deviation of {unit} head", add_std))
+                    legends.append(legend_html(f"Kriging standard deviation ({store.settings.length_unit})",
+                                               s0, s1, "Greys"))
+    gpkg = folder / "layers.gpkg"
+    have = {n for n, _ in pyogrio.list_layers(gpkg)} if gpkg.exists() else set()
+    if "flow_arrows" in have:
+        arrows = pyogrio.read_dataframe(gpkg, layer="flow_arrows")
+        arrows = arrows[arrows["unit"] == unit].to_crs(4326)
+
+        def add_arrows(group):
+            for geom, az, grad in zip(arrows.geometry, arrows["azimuth"], arrows["gradient"]):
+                folium.Marker([geom.y, geom.x], tooltip=f"flow {az:.0f} deg, gradient {grad:.2g}",
+                              icon=folium.DivIcon(html=arrow_svg(az), icon_size=(18, 18),
+                                                  icon_anchor=(9, 9))).add_to(group)
+        if len(arrows):
+            layers.append(("Flow arrows", add_arrows))
+    pump = active_pumping(store, unit).merge(store.read("wells", ["well_id", "x", "y"]), on="well_id")
+    if not pump.empty:
+        pg = gpd.GeoDataFrame(pump, geometry=gpd.points_from_xy(pump["x"], pump["y"]), crs=crs).to_crs(4326)
+        qmax = float(pump["rate_m3d"].max()) or 1.0
+
+        def add_pumping(group):
+            for geom, wid, q in zip(pg.geometry, pg["well_id"], pg["rate_m3d"]):
+                folium.CircleMarker([geom.y, geom.x], radius=float(5 + 14 * np.sqrt(q / qmax)), color="#8c2d04",
+                                    weight=2, fill=True, fill_color="#fdae6b", fill_opacity=0.6,
+                                    tooltip=f"{safe_text(wid)}: {q:.0f} m3/d").add_to(group)
+        layers.append(("Pumping wells (size by rate)", add_pumping))
+    springs = store.read("springs")
+    if not springs.empty:
+        sg = gpd.GeoDataFrame(springs, geometry=gpd.points_from_xy(springs["x"], springs["y"]), crs=crs).to_crs(4326)
+
+        def add_springs(group):
+            for geom, sid, name, elev in zip(sg.geometry, sg["spring_id"], sg["name"], sg["elev"]):
+                icon = folium.DivIcon(html=SPRING_SVG, icon_size=(18, 18), icon_anchor=(9, 9))
+                folium.Marker([geom.y, geom.x], icon=icon,
+                              tooltip=f"{safe_text(sid)} {safe_text(name)} ({elev:g})").add_to(group)
+        layers.append(("Springs", add_springs))
+    areas = store.read_geometries("areas")
+    rech = areas[areas["kind"] == "recharge"] if not areas.empty else areas
+    if not rech.empty:
+        data = geojson_text(rech[["area_id", "kind", "geometry"]])
+
+        def add_recharge(group, data=data):
+            folium.GeoJson(data, style_function=lambda f: {"color": "#238b45", "weight": 2, "fillOpacity": 0.15},
+                           tooltip=folium.GeoJsonTooltip(fields=["area_id"], aliases=["recharge area"])).add_to(group)
+        layers.append(("Recharge areas", add_recharge))
+    if "pathlines" in have:
+        pl = pyogrio.read_dataframe(gpkg, layer="pathlines")
+        pl = pl[(pl["unit"] == unit) & (pl["direction"] == "forward")].to_crs(4326)
+        if len(pl):
+            years = pl["travel_years"].to_numpy(float)
+            t0, t1 = float(np.nanmin(years)), float(np.nanmax(years))
+            pcol = hex_colors(years, t0, t1, TIME_COLORMAP)
+
+            def add_paths(group):
+                for geom, color, yrs, end in zip(pl.geometry, pcol, years, pl["end_kind"]):
+                    folium.PolyLine([(y, x) for x, y in geom.coords], color=color, weight=2, opacity=0.85,
+                                    tooltip=f"{yrs:.1f} years, ends at {safe_text(end)}").add_to(group)
+            layers.append(("Pathlines (colour by travel time)", add_paths))
+            legends.append(legend_html("Pathline travel time (years; Darcy, upper bound in karst)", t0, t1,
+                                       TIME_COLORMAP))
+    if "contributing_areas" in have:
+        ca = pyogrio.read_dataframe(gpkg, layer="contributing_areas")
+        ca = ca[(ca["unit"] == unit) & ~ca.geometry.is_empty]
+        if len(ca):
+            data = geojson_text(ca[["spring_id", "geometry"]])
+
+            def add_ca(group, data=data):
+                folium.GeoJson(data, style_function=lambda f: {"color": "#54278f", "weight": 1.5, "dashArray": "4 3",
+                                                               "fillOpacity": 0.08},
+                               tooltip=folium.GeoJsonTooltip(fields=["spring_id"],
+                                                             aliases=["contributing area of"])).add_to(group)
+            layers.append(("Contributing areas", add_ca))
+    dd_tif = folder / f"{unit}_drawdown.tif"
+    if dd_tif.is_file():
+        dgrid, dd = read_surface(folder, unit, "drawdown", store.location)
+        levels = [v for v in (0.1, 0.25, 0.5, 1, 2, 5, 10, 20, 50) if np.nanmax(dd) > v]
+        dcont = contour_lines(dgrid, dd, levels, crs).to_crs(4326)
+
+        def add_dd(group):
+            for geom, level in zip(dcont.geometry, dcont["level"]):
+                folium.PolyLine([(y, x) for x, y in geom.coords], color="#b30000", weight=1.5, dash_array="6 4",
+                                tooltip=f"drawdown {level:g} {store.settings.length_unit}").add_to(group)
+        if len(dcont):
+            layers.append(("Drawdown of the last scenario", add_dd))
+    cautions = [CAUTION, KARST_WARNING]
+    return write_webmap(out, title=f"hydroatlas: {unit}", center=center, layers=layers, legends=legends,
+                        cautions=cautions, tiles=tiles)
