@@ -449,6 +449,20 @@ def layers(store, k_unit, surfaces, out):
 
 
 @main.command()
+@click.argument("store")
+@click.option("--k-unit", type=click.Choice(known_units("hydraulic conductivity")), default="m/d", show_default=True)
+@click.option("--surfaces", default=None, type=click.Path(file_okay=False), help="Folder of surfaces (default --out).")
+@click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False))
+def figures(store, k_unit, surfaces, out):
+    """PNG and SVG figures: head against elevation at each multi-zone well (units as bands, head
+    difference across each aquitard), log10 K per unit with the geometric mean and its 95 % CI,
+    fitted over experimental variograms, and leave-one-out cross-validation of each surface."""
+    with open_store(store) as s:
+        files = workflows.make_figures(s, out=out, surfaces=surfaces, k_unit=k_unit)
+    click.echo(f"{len(files)} files in {out}")
+
+
+@main.command()
 @click.option("--out", default="demo_out", show_default=True, type=click.Path(file_okay=False),
               help="Folder for the demo store and its outputs.")
 def demo(out):

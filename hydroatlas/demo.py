@@ -80,6 +80,7 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
                                                new_wells=[("PROPOSED-1", 620_000.0, 4_106_000.0, 3000.0)])
         map_path = workflows.build_map(store, unit="ULS", out=out / "map.html", surfaces=surfaces)
         layer_files = workflows.export_layers(store, out=out, surfaces=surfaces)
+        figure_files = workflows.make_figures(store, out=out / "figures", surfaces=surfaces)
     finally:
         store.close()
     echo("\nUnit statistics (K in m/d, every test counts once):")
@@ -99,5 +100,6 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
          f"{scenario['threshold']} m -> {scenario['files']['impacts']}")
     echo(f"\nWeb map (offline, self-contained): {map_path}")
     echo(f"GIS layers: {layer_files['gpkg']} and {out / 'geojson'}")
+    echo(f"Figures: {len(figure_files)} PNG/SVG files in {out / 'figures'}")
     echo(f"store: {store_path}")
     return {"store": str(store_path), "stats": stats_rows, "findings": findings}

@@ -311,8 +311,16 @@ def track(seeds, velocity, *, backward: bool = False, t_max: float = 365_250.0, 
         # ends
         if len(sinks):
             hit = np.full(n, -1)
-            hit[acc] = _sink_hits(p[acc], sinks, radius, x0[accept])
+            hit_acc, frac = _sink_hits(p[acc], sinks, radius, x0[accept], with_fraction=True)
+            hit[acc] = hit_acc
             done = hit >= 0
+            # end where the step entered the capture radius, at the time it did
+            entered = hit_acc >= 0
+            ia = acc[entered]
+            f = frac[entered]
+            start = x0[accept][entered]
+            p[ia] = start + f[:, None] * (p[ia] - start)
+            t[ia] -= (1.0 - f) * dta[accept][entered]
             end_sink[done] = hit[done]
             _end(active, done, end_kind, "sink")
         _end(active, np.isin(np.arange(n), a[stuck]), end_kind, "edge")
@@ -336,19 +344,36 @@ def _end(active, mask, end_kind, kind):
     active[mask] = False
 
 
-def _sink_hits(p, sinks, radius, start=None):
-    """Index of the first sink within its radius of each point (or of the segment start -> point), else -1."""
+def _sink_hits(p, sinks, radius, start=None, with_fraction=False):
+    """Index of the first sink within its radius of each point (or of the segment start -> point), else -1.
+
+    With ``with_fraction`` also the fraction of the segment at which it enters that sink's radius.
+    """
     if len(sinks) == 0:
-        return np.full(len(p), -1)
+        none = np.full(len(p), -1)
+        return (none, np.ones(len(p))) if with_fraction else none
     if start is None:
         d = np.hypot(p[:, None, 0] - sinks[None, :, 0], p[:, None, 1] - sinks[None, :, 1])
-    else:  # closest approach of each step's segment
+        u_enter = np.zeros(d.shape)
+    else:  # closest approach of each step's segment, and where it first enters the radius
         seg = p - start
         rel = sinks[None, :, :] - start[:, None, :]
-        L2 = np.maximum((seg**2).sum(1), 1e-300)[:, None]
+        e2 = (seg**2).sum(1)[:, None]
+        L2 = np.maximum(e2, 1e-300)
         u = np.clip((rel * seg[:, None, :]).sum(2) / L2, 0.0, 1.0)
         closest = start[:, None, :] + u[:, :, None] * seg[:, None, :]
         d = np.hypot(closest[:, :, 0] - sinks[None, :, 0], closest[:, :, 1] - sinks[None, :, 1])
+        # |start - sink + u seg| = radius: smallest root in [0, 1] (0 when the start is already inside)
+        dd = -rel
+        b = (dd * seg[:, None, :]).sum(2)
+        c = (dd**2).sum(2) - radius[None, :] ** 2
+        disc = np.maximum(b * b - e2 * c, 0.0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            root = (-b - np.sqrt(disc)) / L2
+        u_enter = np.where(c <= 0, 0.0, np.clip(np.nan_to_num(root, nan=1.0), 0.0, 1.0))
     inside = d <= radius[None, :]
     first = np.where(inside.any(1), np.argmax(inside, axis=1), -1)
-    return first
+    if not with_fraction:
+        return first
+    frac = np.where(first >= 0, u_enter[np.arange(len(p)), np.maximum(first, 0)], 1.0)
+    return first, frac

@@ -962,8 +962,8 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
                 reproject(std.astype("float32"), warped, src_transform=src.transform, src_crs=src.crs,
                           dst_transform=transform, dst_crs=dst_crs, resampling=Resampling.bilinear,
                           src_nodata=np.nan, dst_nodata=np.nan)
-                w_, n_ = transform * (0, 0)
-                e_, s_ = transform * (width, height)
+                w_, n_ = transform @ (0, 0)
+                e_, s_ = transform @ (width, height)
                 fin = warped[np.isfinite(warped)]
                 if fin.size:
                     from matplotlib import colormaps
@@ -1063,3 +1063,65 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
     cautions = [CAUTION, KARST_WARNING]
     return write_webmap(out, title=f"hydroatlas: {unit}", center=center, layers=layers, legends=legends,
                         cautions=cautions, tiles=tiles)
+
+
+def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") -> list[Path]:
+    """PNG and SVG figures: head profiles of multi-zone wells, log K per unit, variogram fits, cross-validation."""
+    import json
+
+    from .export import figures
+    from .interp import Variogram, crossval
+
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    folder = Path(surfaces) if surfaces is not None else out
+    written: list[Path] = []
+    units = store.read("units")
+    pairs, profiles = verticals(store)
+    if not profiles.empty:
+        picks = assign.finest_picks(store.read("picks"), units)
+        inferred = assign.infer_picks(store.read("wells"), store.read("picks"), units)
+        allp = pd.concat([picks[["well_id", "unit", "top_depth", "bottom_depth"]], inferred], ignore_index=True)
+        allp = allp.merge(store.read("wells", ["well_id", "ground_elev"]), on="well_id")
+        allp["top_elev"] = allp["ground_elev"] - allp["top_depth"]
+        allp["bottom_elev"] = allp["ground_elev"] - allp["bottom_depth"]
+        allp = allp.merge(units[["code", "role"]].rename(columns={"code": "unit"}), on="unit")
+        for well, zones in profiles.groupby("well_id"):
+            written += figures.head_profile(out / f"profile_{_file_safe(well)}", well, zones,
+                                            allp[allp["well_id"] == well], pairs[pairs["well_id"] == well],
+                                            length_unit=store.settings.length_unit)
+    tests = tests_with_units(store)
+    tests = tests[tests["unit"].notna()]
+    if not tests.empty:
+        from .quantities import k_from_ms
+
+        values = pd.DataFrame({"unit": tests["unit"], "log10k": np.log10(k_from_ms(tests["k_ms"].to_numpy(float),
+                                                                                    k_unit))})
+        rows = [r for r in unit_stats(store, k_unit=k_unit) if r["n_tests"]]
+        written += figures.logk_distribution(out / "logk_by_unit", values, rows, k_unit=k_unit)
+    for side_path in sorted(folder.glob("*_*.json")):
+        side = json.loads(side_path.read_text())
+        if "variogram" not in side or "quantity" not in side:
+            continue
+        v = side["variogram"]
+        stem = side_path.stem
+        if v.get("experimental"):
+            written += figures.variogram_fit(out / f"variogram_{stem}", v["experimental"], v,
+                                             title=f"{side['unit']} {side['quantity']}")
+        xy, z, _, info = surface_points(store, side["unit"], side["quantity"], window=side.get("window"),
+                                        at=side.get("at"), lower_unit=side.get("lower_unit"))
+        vario = Variogram(v["model"], nugget=v["nugget"], sill=v["sill"], range=v["range"], angle=v.get("angle", 0),
+                          ratio=v.get("ratio", 1))
+        model, _ = make_interpolator(side["method"], xy, z, variogram=v["model"], nugget=vario.nugget,
+                                     sill=vario.sill, range_=vario.range, neighbors=side.get("neighbors"))
+        cv = crossval.leave_one_out(model, xy, z)
+        written += figures.cross_validation(out / f"crossval_{stem}", z, cv["estimate"], std=cv["std"],
+                                            label=f"{side['unit']} {side['quantity']} ({side['method']})",
+                                            unit=info["value_unit"])
+    return written
+
+
+def _file_safe(text: str) -> str:
+    import re
+
+    return re.sub(r"[^A-Za-z0-9_.-]+", "_", str(text))[:80] or "well"

@@ -81,7 +81,7 @@ def _for_well(df: pd.DataFrame, well_id) -> pd.DataFrame:
 
 
 def _is_missing(value) -> bool:
-    return value is None or (isinstance(value, float) and math.isnan(value)) or str(value).strip() == ""
+    return value is None or (not isinstance(value, str) and bool(pd.isna(value))) or str(value).strip() == ""
 
 
 def _as_float_array(values, name: str) -> np.ndarray:
@@ -260,6 +260,9 @@ def logk_distribution(stem, values, stats, *, k_unit="m/d") -> list[Path]:
         n = [by_unit.get(unit, {}).get("n_tests", len(groups[i])) for i, unit in enumerate(order)]
         ax.set_xticks(x, [f"{unit}\nn = {k}" for unit, k in zip(order, n)])
         ax.set_xlim(-0.6, len(order) - 0.4)
+        lo, hi = ax.get_ylim()
+        if hi - lo < 1.0:  # show at least one log cycle
+            ax.set_ylim((lo + hi) / 2 - 0.5, (lo + hi) / 2 + 0.5)
         ax.scatter([], [], s=14, color=BLUE, alpha=0.7, label="single test (jittered)")
         handles = ax.get_legend_handles_labels()[0] + [
             Patch(facecolor=SKY, alpha=0.35, edgecolor="#333333", label="box: quartiles, median; whiskers 1.5 IQR")]
