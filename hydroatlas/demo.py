@@ -81,6 +81,8 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
         map_path = workflows.build_map(store, unit="ULS", out=out / "map.html", surfaces=surfaces)
         layer_files = workflows.export_layers(store, out=out, surfaces=surfaces)
         figure_files = workflows.make_figures(store, out=out / "figures", surfaces=surfaces)
+        model = workflows.model_grid(store, cell=250.0, out=out / "model" / "zephyrine_model.nc",
+                                     layers=["CAP", "ULS", "SHL", "LCL"], surfaces=surfaces)
     finally:
         store.close()
     echo("\nUnit statistics (K in m/d, every test counts once):")
@@ -101,5 +103,8 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
     echo(f"\nWeb map (offline, self-contained): {map_path}")
     echo(f"GIS layers: {layer_files['gpkg']} and {out / 'geojson'}")
     echo(f"Figures: {len(figure_files)} PNG/SVG files in {out / 'figures'}")
+    nl, nr, nc = model["shape"]
+    echo(f"Model grid: {nl} layers x {nr} rows x {nc} columns -> {model['files']['netcdf']} "
+         f"(arrays and manifest beside it)")
     echo(f"store: {store_path}")
     return {"store": str(store_path), "stats": stats_rows, "findings": findings}
