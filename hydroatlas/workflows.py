@@ -127,6 +127,18 @@ def zone_heads(store: Store, *, window=None, at: str | None = None, assignment=N
                      on=["well_id", "zone_id"], how="left")
 
 
+def unit_intervals(store: Store, units: pd.DataFrame | None = None) -> pd.DataFrame:
+    """Elevation interval of every unit at every well: the (finest) picks, plus inferred picks at wells without."""
+    units = store.read("units") if units is None else units
+    picks = assign.finest_picks(store.read("picks"), units)
+    inferred = assign.infer_picks(store.read("wells"), store.read("picks"), units)
+    allp = pd.concat([picks[["well_id", "unit", "top_depth", "bottom_depth"]], inferred], ignore_index=True)
+    allp = allp.merge(store.read("wells", ["well_id", "ground_elev"]), on="well_id")
+    allp["top_elev"] = allp["ground_elev"] - allp["top_depth"]
+    allp["bottom_elev"] = allp["ground_elev"] - allp["bottom_depth"]
+    return allp[["well_id", "unit", "top_elev", "bottom_elev"]]
+
+
 def verticals(store: Store, *, window=None, at: str | None = None):
     """Head profiles of multi-zone wells and the differences between successive zones.
 
@@ -140,13 +152,7 @@ def verticals(store: Store, *, window=None, at: str | None = None):
     units = store.read("units")
     k_ms = {r["unit"]: (r["k_geomean"] if r["k_geomean"] is not None else float("nan"))
             for r in unit_stats(store, k_unit="m/s")}
-    picks = assign.finest_picks(store.read("picks"), units)
-    inferred = assign.infer_picks(store.read("wells"), store.read("picks"), units)
-    allp = pd.concat([picks[["well_id", "unit", "top_depth", "bottom_depth"]], inferred], ignore_index=True)
-    allp = allp.merge(store.read("wells", ["well_id", "ground_elev"]), on="well_id")
-    allp["top_elev"] = allp["ground_elev"] - allp["top_depth"]
-    allp["bottom_elev"] = allp["ground_elev"] - allp["bottom_depth"]
-    pairs = vertical_differences(profiles, units, k_ms, allp[["well_id", "unit", "top_elev", "bottom_elev"]],
+    pairs = vertical_differences(profiles, units, k_ms, unit_intervals(store, units),
                                  length_to_m=_length_to_m(store))
     pairs["leakage_unit"] = f"{store.settings.length_unit}/d"
     return pairs, profiles
@@ -1079,13 +1085,8 @@ def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") -
     units = store.read("units")
     pairs, profiles = verticals(store)
     if not profiles.empty:
-        picks = assign.finest_picks(store.read("picks"), units)
-        inferred = assign.infer_picks(store.read("wells"), store.read("picks"), units)
-        allp = pd.concat([picks[["well_id", "unit", "top_depth", "bottom_depth"]], inferred], ignore_index=True)
-        allp = allp.merge(store.read("wells", ["well_id", "ground_elev"]), on="well_id")
-        allp["top_elev"] = allp["ground_elev"] - allp["top_depth"]
-        allp["bottom_elev"] = allp["ground_elev"] - allp["bottom_depth"]
-        allp = allp.merge(units[["code", "role"]].rename(columns={"code": "unit"}), on="unit")
+        allp = unit_intervals(store, units).merge(units[["code", "role"]].rename(columns={"code": "unit"}),
+                                                  on="unit")
         for well, zones in profiles.groupby("well_id"):
             written += figures.head_profile(out / f"profile_{_file_safe(well)}", well, zones,
                                             allp[allp["well_id"] == well], pairs[pairs["well_id"] == well],
