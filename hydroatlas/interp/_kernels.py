@@ -340,3 +340,147 @@ def apply_systems(q, q_raw, pts, count, group, rep_idx, ainv, alpha, code, nugge
         est[c] = e
         var[c] = v
     return est, var
+
+
+@njit(cache=True, parallel=True)
+def build_cholesky_ok(rep, iso, z, code, nugget, psill, rng):
+    """Ordinary kriging in covariance form, factored once per neighbour set (Cholesky).
+
+    With C the covariance matrix of the set (C(h) = sill - gamma(h), C(0) = sill),
+    L its Cholesky factor, ``u1 = L^-1 1``, ``s = 1' C^-1 1``, the kriged mean
+    ``m = 1' C^-1 z / s`` and ``w = C^-1 (z - m 1)``, a target with covariances c
+    has estimate ``m + c' w`` and variance ``sill - |L^-1 c|^2 + (1 - u1' L^-1 c)^2 / s``.
+    This costs about a tenth of inverting the bordered variogram matrix.
+    Padded slots (-1) get identity rows and zero entries. ``ok`` is False where C
+    is not positive definite (the caller then uses the bordered system).
+    """
+    G, k = rep.shape
+    sill = nugget + psill
+    L = np.zeros((G, k, k))
+    u1 = np.zeros((G, k))
+    s_ = np.zeros(G)
+    w = np.zeros((G, k))
+    mhat = np.zeros(G)
+    ok = np.ones(G, dtype=np.bool_)
+    for g in prange(G):
+        c = np.zeros((k, k))
+        for i in range(k):
+            pi = rep[g, i]
+            if pi < 0:
+                c[i, i] = 1.0
+                continue
+            c[i, i] = sill
+            for j in range(i):
+                pj = rep[g, j]
+                if pj < 0:
+                    continue
+                dx = iso[pi, 0] - iso[pj, 0]
+                dy = iso[pi, 1] - iso[pj, 1]
+                cij = sill - gamma_scalar(np.sqrt(dx * dx + dy * dy), code, nugget, psill, rng)
+                c[i, j] = cij
+        # Cholesky (lower), in place
+        lg = L[g]
+        good = True
+        for i in range(k):
+            for j in range(i + 1):
+                acc = c[i, j]
+                for t in range(j):
+                    acc -= lg[i, t] * lg[j, t]
+                if i == j:
+                    if acc <= 1e-12 * sill:
+                        good = False
+                        break
+                    lg[i, i] = np.sqrt(acc)
+                else:
+                    lg[i, j] = acc / lg[j, j]
+            if not good:
+                break
+        if not good:
+            ok[g] = False
+            continue
+        one = np.zeros(k)
+        zz = np.zeros(k)
+        for i in range(k):
+            if rep[g, i] >= 0:
+                one[i] = 1.0
+                zz[i] = z[rep[g, i]]
+        a1 = _forward(lg, one)
+        az = _forward(lg, zz)
+        s = 0.0
+        sz = 0.0
+        for i in range(k):
+            s += a1[i] * a1[i]
+            sz += a1[i] * az[i]
+        m = sz / s
+        r = np.empty(k)
+        for i in range(k):
+            r[i] = az[i] - m * a1[i]
+        w[g] = _backward(lg, r)
+        u1[g] = a1
+        s_[g] = s
+        mhat[g] = m
+    return L, u1, s_, w, mhat, ok
+
+
+@njit(cache=True, inline="always")
+def _forward(lg, b):
+    k = b.shape[0]
+    x = np.empty(k)
+    for i in range(k):
+        acc = b[i]
+        for t in range(i):
+            acc -= lg[i, t] * x[t]
+        x[i] = acc / lg[i, i]
+    return x
+
+
+@njit(cache=True, inline="always")
+def _backward(lg, b):
+    k = b.shape[0]
+    x = np.empty(k)
+    for i in range(k - 1, -1, -1):
+        acc = b[i]
+        for t in range(i + 1, k):
+            acc -= lg[t, i] * x[t]
+        x[i] = acc / lg[i, i]
+    return x
+
+
+@njit(cache=True, parallel=True)
+def apply_cholesky_ok(q, pts, count, group, rep_idx, L, u1, s_, w, mhat, code, nugget, psill, rng, min_points):
+    """Estimate and ordinary-kriging variance of each target from its group's Cholesky factor."""
+    m = q.shape[0]
+    k = rep_idx.shape[1]
+    sill = nugget + psill
+    est = np.full(m, np.nan)
+    var = np.full(m, np.nan)
+    for c in prange(m):
+        if count[c] < min_points:
+            continue
+        g = group[c]
+        cv = np.zeros(k)
+        for t in range(k):
+            p = rep_idx[g, t]
+            if p < 0:
+                continue
+            dx = pts[p, 0] - q[c, 0]
+            dy = pts[p, 1] - q[c, 1]
+            h = np.sqrt(dx * dx + dy * dy)
+            cv[t] = sill if h <= 0.0 else sill - gamma_scalar(h, code, nugget, psill, rng)
+        e = mhat[g]
+        for t in range(k):
+            e += cv[t] * w[g, t]
+        lg = L[g]
+        aa = 0.0
+        ua = 0.0
+        x = np.empty(k)
+        for i in range(k):
+            acc = cv[i]
+            for t in range(i):
+                acc -= lg[i, t] * x[t]
+            x[i] = acc / lg[i, i]
+            aa += x[i] * x[i]
+            ua += u1[g, i] * x[i]
+        est[c] = e
+        var[c] = sill - aa + (1.0 - ua) ** 2 / s_[g]
+    return est, var

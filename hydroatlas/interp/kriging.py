@@ -167,6 +167,16 @@ class _Kriging:
         # first hash with another set by chance (odds about 2**-64) and is solved alone
         lone = enough & (hashes[:, 1] != hashes[first, 1][group])
         rep = np.ascontiguousarray(idx[first])
+        if self.n_drift == 1:
+            L, u1, s_, w, mhat, chol_ok = _kernels.build_cholesky_ok(rep, self.iso_, self.z_, v.code, v.nugget,
+                                                                     v.partial_sill, v.range)
+            if chol_ok.all():
+                est, var = _kernels.apply_cholesky_ok(iso, self.iso_, count, group, rep, L, u1, s_, w, mhat,
+                                                      v.code, v.nugget, v.partial_sill, v.range,
+                                                      self.min_points_local)
+                for c in np.flatnonzero(lone):
+                    est[c], var[c] = self._solve_one(q[c], idx[c, : count[c]])
+                return est, var
         ainv, alpha, solved = _kernels.build_systems(
             rep, self.iso_, self.xy_, self.z_, v.code, v.nugget, v.partial_sill, v.range, self.n_drift,
             float(self.center_[0]), float(self.center_[1]), self.scale_)
