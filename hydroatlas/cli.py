@@ -27,6 +27,13 @@ CAUTION = ("Results are screening-level estimates for planning and model set-up,
 
 _FORMATS = click.Choice(["table", "csv", "json"])
 
+# options shared by several commands, declared once
+k_unit_option = click.option("--k-unit", type=click.Choice(known_units("hydraulic conductivity")), default="m/d",
+                             show_default=True, help="Unit of the K figures.")
+surfaces_option = click.option("--surfaces", default=None, type=click.Path(file_okay=False),
+                               help="Folder of the surfaces and layers.gpkg made by 'surface' and 'paths' "
+                                    "(default: the output folder).")
+
 
 class _Group(click.Group):
     """Turn hydroatlas errors into exit code 2 and one line; anything else into exit code 1."""
@@ -152,8 +159,7 @@ def check(store, as_json):
 @main.command()
 @click.argument("store")
 @click.option("--unit", default=None, help="Only this unit code.")
-@click.option("--k-unit", type=click.Choice(known_units("hydraulic conductivity")), default="m/d",
-              show_default=True, help="Unit of the K figures.")
+@k_unit_option
 @click.option("--per", type=click.Choice(PER_CHOICES), default="test", show_default=True,
               help="What counts once: every test, the log-mean of each zone, or of each well.")
 @click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
@@ -295,8 +301,7 @@ def threepoint(store, unit, wells, window, at, fmt):
 @click.option("--backward", is_flag=True, help="Track backward from the springs and outline contributing areas.")
 @click.option("--k-source", type=click.Choice(["mean", "surface"]), default="mean", show_default=True,
               help="K from the unit's geometric mean or from its log-K surface.")
-@click.option("--surfaces", default=None, type=click.Path(file_okay=False),
-              help="Folder of the surfaces (default: --out).")
+@surfaces_option
 @click.option("--seed-spacing", type=float, default=None, help="Spacing of seeds in recharge areas (CRS units).")
 @click.option("--capture-radius", type=float, default=None, help="Particles end within this of a spring or "
               "pumping well (default: 2 cells).")
@@ -370,7 +375,7 @@ def _parse_new_wells(values):
               help="T in m2/d (default: the unit's geometric-mean K times its mean thickness).")
 @click.option("--threshold", type=float, default=0.5, show_default=True,
               help="List springs and monitoring zones losing more head than this (store length unit).")
-@click.option("--surfaces", default=None, type=click.Path(file_okay=False), help="Folder of the surfaces.")
+@surfaces_option
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False), help="Output folder.")
 def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transmissivity, threshold, surfaces, out):
     """Theis drawdown of the unit's pumping wells, superposed on its head surface.
@@ -409,9 +414,8 @@ def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transm
 @main.command(name="map")
 @click.argument("store")
 @click.option("--unit", default=None, help="Unit whose K, head contours and results are shown (default: top aquifer).")
-@click.option("--k-unit", type=click.Choice(known_units("hydraulic conductivity")), default="m/d", show_default=True)
-@click.option("--surfaces", default=None, type=click.Path(file_okay=False),
-              help="Folder of surfaces and layers.gpkg (default: the folder of --out).")
+@k_unit_option
+@surfaces_option
 @click.option("--tiles", default=None, help="Basemap URL template (needs internet); none by default.")
 @click.option("--out", default="map.html", show_default=True, type=click.Path(dir_okay=False))
 def map_(store, unit, k_unit, surfaces, tiles, out):
@@ -433,8 +437,8 @@ def map_(store, unit, k_unit, surfaces, tiles, out):
 
 @main.command()
 @click.argument("store")
-@click.option("--k-unit", type=click.Choice(known_units("hydraulic conductivity")), default="m/d", show_default=True)
-@click.option("--surfaces", default=None, type=click.Path(file_okay=False), help="Folder of surfaces (default --out).")
+@k_unit_option
+@surfaces_option
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False))
 def layers(store, k_unit, surfaces, out):
     """Vector layers to OUT/layers.gpkg and OUT/geojson/*.geojson (RFC 7946, WGS 84).
@@ -450,8 +454,8 @@ def layers(store, k_unit, surfaces, out):
 
 @main.command()
 @click.argument("store")
-@click.option("--k-unit", type=click.Choice(known_units("hydraulic conductivity")), default="m/d", show_default=True)
-@click.option("--surfaces", default=None, type=click.Path(file_okay=False), help="Folder of surfaces (default --out).")
+@k_unit_option
+@surfaces_option
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False))
 def figures(store, k_unit, surfaces, out):
     """PNG and SVG figures: head against elevation at each multi-zone well (units as bands, head
@@ -486,8 +490,7 @@ def _pair(text, what, cast=float):
 @click.option("--k-source", type=click.Choice(["mean", "surface"]), default="mean", show_default=True)
 @click.option("--min-thickness", type=float, default=1.0, show_default=True,
               help="Smallest layer thickness (store length unit).")
-@click.option("--surfaces", default=None, type=click.Path(file_okay=False),
-              help="Folder of head and log-K surfaces (default: the folder of --out).")
+@surfaces_option
 @click.option("--max-cells", type=int, default=None, help="Refuse grids larger than this (default 20,000,000).")
 @click.option("--out", default="model.nc", show_default=True, type=click.Path(dir_okay=False))
 def grid(store, cell, origin, shape, rotation, layers, kv_ratio, k_source, min_thickness, surfaces, max_cells, out):
