@@ -26,6 +26,9 @@ CAUTION = ("Results are screening-level estimates for planning and model set-up,
            "engineer; well construction, testing and pumping are governed by local rules and permits.")
 
 _FORMATS = click.Choice(["table", "csv", "json"])
+# Defaults used (with a warning) when a scenario parameter is not given; common practice, not site values.
+DEFAULT_POROSITY = 0.1
+DEFAULT_STORATIVITY = 1e-4
 
 # options shared by several commands, declared once
 k_unit_option = click.option("--k-unit", type=click.Choice(known_units("hydraulic conductivity")), default="m/d",
@@ -297,7 +300,9 @@ def threepoint(store, unit, wells, window, at, fmt):
 @main.command()
 @click.argument("store")
 @click.option("--unit", required=True, help="Unit code (its head surface must exist).")
-@click.option("--porosity", type=float, required=True, help="Effective porosity n_e, in (0, 1].")
+@click.option("--porosity", type=float, default=None,
+              help=f"Effective porosity n_e, in (0, 1] (default {DEFAULT_POROSITY}, with a warning: give the "
+                   "value for your rock).")
 @click.option("--backward", is_flag=True, help="Track backward from the springs and outline contributing areas.")
 @click.option("--k-source", type=click.Choice(["mean", "surface"]), default="mean", show_default=True,
               help="K from the unit's geometric mean or from its log-K surface.")
@@ -325,6 +330,10 @@ def paths(store, unit, porosity, backward, k_source, surfaces, seed_spacing, cap
 
     Example: hydroatlas paths district.gpkg --unit ULS --porosity 0.02 --out maps/
     """
+    if porosity is None:
+        porosity = DEFAULT_POROSITY
+        click.echo(f"warning: --porosity not given; using n_e = {DEFAULT_POROSITY} (travel times scale with n_e: "
+                   "give the effective porosity of your unit)", err=True)
     with open_store(store) as s:
         result = workflows.trace_paths(s, unit, porosity=porosity, out=out, surfaces=surfaces, backward=backward,
                                        k_source=k_source, seed_spacing=seed_spacing, capture_radius=capture_radius,
@@ -367,7 +376,8 @@ def _parse_new_wells(values):
 @click.argument("store")
 @click.option("--unit", required=True, help="Unit code (its head surface must exist).")
 @click.option("--days", type=float, required=True, help="Pumping duration in days.")
-@click.option("--storativity", "-S", type=float, required=True, help="Storage coefficient S (> 0).")
+@click.option("--storativity", "-S", type=float, default=None,
+              help=f"Storage coefficient S (> 0; default {DEFAULT_STORATIVITY}, a confined aquifer, with a warning).")
 @click.option("--rate", "rates", multiple=True, help="WELL=Q: rate of a stored well (replaces its stored rate).")
 @click.option("--new-well", "new_wells", multiple=True, help="[NAME,]X,Y,Q: a proposed well (store CRS).")
 @click.option("--rate-unit", type=click.Choice(list(RATE_UNITS)), default="m3/d", show_default=True)
@@ -394,6 +404,10 @@ def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transm
 
     Example: hydroatlas drawdown district.gpkg --unit ULS --days 365 -S 0.001 --rate ZP-031=2000
     """
+    if storativity is None:
+        storativity = DEFAULT_STORATIVITY
+        click.echo(f"warning: --storativity not given; using S = {DEFAULT_STORATIVITY} (typical of a confined "
+                   "aquifer; an unconfined one is nearer 0.01-0.3: give the value for your unit)", err=True)
     with open_store(store) as s:
         res = workflows.drawdown_scenario(s, unit, days=days, storativity=storativity, rates=_parse_rates(rates),
                                           new_wells=_parse_new_wells(new_wells), rate_unit=rate_unit,

@@ -175,3 +175,22 @@ def test_drawdown_bad_input(flow_store, tmp_path, runner):
         res = cli(runner, *args, *extra)
         assert res.exit_code == 2, (extra, res.output)
         assert message in res.output, (extra, res.output)
+
+
+def test_defaults_are_announced(flow_store, tmp_path, runner):
+    """SPEC section 3 lists --porosity and the storage coefficient as optional: a default is used, and said."""
+    from click.testing import CliRunner
+
+    from hydroatlas.cli import main
+
+    out = tmp_path / "out"
+    add_spring_and_recharge(flow_store, tmp_path, runner)
+    make_surface(flow_store, out, runner)
+    loud = CliRunner()
+    res = loud.invoke(main, ["paths", str(flow_store), "--unit", "AQ", "--out", str(out)])
+    assert res.exit_code == 0 and "--porosity not given" in res.output
+    assert json.loads((out / "AQ_pathways.json").read_text())["porosity"] == 0.1
+    res = loud.invoke(main, ["drawdown", str(flow_store), "--unit", "AQ", "--days", "10", "--new-well",
+                             f"{X0 + 2000},{Y0 + 2000},500", "--out", str(out)])
+    assert res.exit_code == 0 and "--storativity not given" in res.output
+    assert json.loads((out / "AQ_drawdown.json").read_text())["storativity"] == 1e-4
