@@ -187,6 +187,8 @@ def stats(store, unit, k_unit, per, fmt, exclude_straddles, exclude_poor, by_wel
     if fmt == "json":
         _emit(pd.DataFrame(), "json", rows)
         return
+    if not rows:
+        raise HydroatlasError("the store has no units; import a units file first")
     frame = pd.DataFrame(rows)
     if fmt == "table":
         frame["ci95"] = [("-" if v is None or v[0] is None or not math.isfinite(v[0])
