@@ -484,3 +484,30 @@ def apply_cholesky_ok(q, pts, count, group, rep_idx, L, u1, s_, w, mhat, code, n
         est[c] = e
         var[c] = sill - aa + (1.0 - ua) ** 2 / s_[g]
     return est, var
+
+
+@njit(cache=True, parallel=True)
+def idw_apply(q, pts, z, idx, count, power):
+    """Inverse-distance-weighted estimate of each target from its neighbour set (exact at data points)."""
+    m = q.shape[0]
+    out = np.full(m, np.nan)
+    for c in prange(m):
+        n = count[c]
+        if n == 0:
+            continue
+        wsum = 0.0
+        acc = 0.0
+        exact = -1
+        for t in range(n):
+            p = idx[c, t]
+            dx = pts[p, 0] - q[c, 0]
+            dy = pts[p, 1] - q[c, 1]
+            d2 = dx * dx + dy * dy
+            if d2 == 0.0:
+                exact = p
+                break
+            w = d2 ** (-0.5 * power)
+            wsum += w
+            acc += w * z[p]
+        out[c] = z[exact] if exact >= 0 else acc / wsum
+    return out

@@ -46,6 +46,16 @@ class IDW:
         require_points(len(xy), 1, "IDW")
         self.xy_, self.z_ = xy, z
         self.tree_ = cKDTree(xy)
+        k = len(xy) if self.neighbors is None else min(self.neighbors, len(xy))
+        if k < len(xy) or self.radius is not None:
+            # the compiled tile-wise neighbour search of the kriging solver (see kriging._tiles)
+            from . import _kernels
+            from .kriging import tile_width
+
+            self.k_ = k
+            self.buckets_ = _kernels.build_buckets(xy)
+            self.keys_ = np.zeros((len(xy), 2), dtype=np.uint64)
+            self.tile_width_ = tile_width(xy, k)
         return self
 
     def predict(self, xy_new, *, chunk: int = 200_000) -> np.ndarray:
@@ -53,6 +63,8 @@ class IDW:
         if not hasattr(self, "tree_"):
             raise NotFittedError("IDW.predict called before fit")
         pts = as_points(xy_new, "xy_new")
+        if hasattr(self, "buckets_"):
+            return self._predict_local(pts, chunk)
         k = len(self.xy_) if self.neighbors is None else min(self.neighbors, len(self.xy_))
         out = np.empty(len(pts))
         bound = np.inf if self.radius is None else self.radius
@@ -73,4 +85,23 @@ class IDW:
             est[hit] = vals[hit, np.argmax(exact[hit], axis=1)]
             est[~valid.any(axis=1)] = np.nan
             out[s:s + chunk] = est
+        return out
+
+    def _predict_local(self, pts, chunk):
+        from . import _kernels
+        from .kriging import _tiles
+
+        x0, y0, size, nbx, nby, order, starts = self.buckets_
+        radius2 = np.inf if self.radius is None else float(self.radius) ** 2
+        out = np.empty(len(pts))
+        for s in range(0, len(pts), chunk):
+            q = np.ascontiguousarray(pts[s:s + chunk])
+            perm, tile_starts, centers, half_diag = _tiles(q, self.tile_width_)
+            sq = np.ascontiguousarray(q[perm])
+            idx, count, _ = _kernels.knn_tiles(sq, tile_starts, centers, half_diag, self.xy_, x0, y0, size, nbx,
+                                               nby, order, starts, self.k_, radius2, self.keys_)
+            est = _kernels.idw_apply(sq, self.xy_, self.z_, idx, count, float(self.power))
+            res = np.empty(len(q))
+            res[perm] = est
+            out[s:s + chunk] = res
         return out

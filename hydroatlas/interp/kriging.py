@@ -76,10 +76,7 @@ class _Kriging:
             self.k_ = int(min(k, len(xy)))
             self.buckets_ = _kernels.build_buckets(self.iso_)
             self.keys_ = np.random.default_rng(12345).integers(1, 2**63, (len(xy), 2), dtype=np.int64).astype(np.uint64)
-            span = np.ptp(self.iso_, axis=0)
-            area = max(float(span[0] * span[1]), float(span.max()) ** 2 * 1e-6, 1e-300)
-            # tiles about half the typical distance to the k-th neighbour wide: few candidates per target
-            self.tile_width_ = 0.5 * float(np.sqrt(self.k_ * area / (np.pi * len(xy))))
+            self.tile_width_ = tile_width(self.iso_, self.k_)
         return self
 
     # -- helpers ---------------------------------------------------------------
@@ -215,6 +212,13 @@ class _Kriging:
         b = np.concatenate([v(np.hypot(*(self.iso_[members] - iso).T)), self._drift(q[None])[0]])
         w = np.linalg.lstsq(a, b, rcond=None)[0]
         return float(w[: len(members)] @ self.z_[members]), float(w @ b)
+
+
+def tile_width(xy: np.ndarray, k: int) -> float:
+    """Tiles about half the typical distance to the k-th neighbour wide: few candidates per target."""
+    span = np.ptp(xy, axis=0)
+    area = max(float(span[0] * span[1]), float(span.max()) ** 2 * 1e-6, 1e-300)
+    return 0.5 * float(np.sqrt(k * area / (np.pi * len(xy))))
 
 
 def _tiles(q: np.ndarray, width: float):
