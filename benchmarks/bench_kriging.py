@@ -69,7 +69,6 @@ import json
 import multiprocessing as mp
 import os
 import platform
-import resource
 import subprocess
 import sys
 import tempfile
@@ -79,6 +78,9 @@ from concurrent.futures.process import BrokenProcessPool
 from pathlib import Path
 
 import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))  # noqa: E402
+from _common import peak_mb as _peak_mb  # noqa: E402
 
 ROOT = Path(__file__).resolve().parent.parent
 PEAK_TARGET_MB = 1500.0
@@ -107,22 +109,6 @@ CASES = ("dense", "sparse", "big", "scaling", "idw")
 
 
 # -- helpers run in every process ----------------------------------------------
-def _peak_mb() -> float:
-    """Peak RSS of this process so far in MB (10**6 bytes): ``VmHWM`` on Linux, else ``ru_maxrss``.
-
-    ``ru_maxrss`` is not used on Linux because it carries over from the parent
-    through fork + exec, so a spawned child would report at least the parent's
-    RSS at spawn time.
-    """
-    try:
-        with open("/proc/self/status", encoding="ascii") as fh:
-            for line in fh:
-                if line.startswith("VmHWM:"):
-                    return int(line.split()[1]) * 1024 / 1e6
-    except OSError:
-        pass
-    rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-    return rss * (1.0 if sys.platform == "darwin" else 1024.0) / 1e6
 
 
 def _run_isolated(fn, *args):

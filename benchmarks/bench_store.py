@@ -41,7 +41,6 @@ import json
 import multiprocessing as mp
 import os
 import platform
-import resource
 import sys
 import tempfile
 import time
@@ -49,6 +48,9 @@ from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
 import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))  # noqa: E402
+from _common import maxrss_mb as _maxrss_mb, peak_mb as _peak_mb  # noqa: E402
 
 CRS = "EPSG:32616"
 KINDS = ("units", "wells", "picks", "zones", "ktests", "heads")
@@ -74,30 +76,8 @@ RAW_COLUMNS = {
 
 
 # -- helpers run in every process ----------------------------------------------
-def _maxrss_mb() -> float:
-    """``getrusage(RUSAGE_SELF).ru_maxrss`` in MB (10**6 bytes); KiB on Linux, bytes on macOS."""
-    rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-    scale = 1.0 if sys.platform == "darwin" else 1024.0
-    return rss * scale / 1e6
 
 
-def _peak_mb() -> float:
-    """Peak RSS of this process so far, in MB (10**6 bytes).
-
-    On Linux this is ``VmHWM`` from /proc/self/status: the high-water mark of
-    this process's own address space. ``ru_maxrss`` is not used there because
-    Linux carries it over from the parent through fork (or vfork) + exec, so a
-    spawned child would report at least the parent's RSS at spawn time.
-    Elsewhere ``ru_maxrss`` is the fallback.
-    """
-    try:
-        with open("/proc/self/status", encoding="ascii") as fh:
-            for line in fh:
-                if line.startswith("VmHWM:"):
-                    return int(line.split()[1]) * 1024 / 1e6
-    except OSError:
-        pass
-    return _maxrss_mb()
 
 
 def _run_isolated(fn, *args):

@@ -237,20 +237,6 @@ def _tiles(q: np.ndarray, width: float):
     return perm, tile_starts, centers, half_diag
 
 
-def _invert(a: np.ndarray) -> np.ndarray:
-    """Batched inverse; singular systems fall back to the pseudo-inverse one by one."""
-    try:
-        return np.linalg.inv(a)
-    except np.linalg.LinAlgError:
-        out = np.empty_like(a)
-        for g in range(len(a)):
-            try:
-                out[g] = np.linalg.inv(a[g])
-            except np.linalg.LinAlgError:
-                out[g] = np.linalg.pinv(a[g])
-        return out
-
-
 class OrdinaryKriging(_Kriging):
     """Ordinary kriging (unknown constant mean).
 
