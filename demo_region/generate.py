@@ -188,6 +188,22 @@ def build(out: Path) -> dict[str, int]:
             else:
                 head_rows.append([wid, zid, when, f"{val:.2f}", "", "", "good"])
 
+    # Slug tests at a few screened ULS wells: Hvorslev recoveries (slug in and slug out) from the zone's K.
+    slug_rows, slug_geom = [], []
+    rc, rw, screen = 0.0254, 0.0508, 6.0
+    screened = [z for z in zones if z[4] == "screen" and z[6] == "ULS"][:5]
+    for wid, zid, top_d, bot_d, zkind, override, code in screened:
+        _, _, _, _, mu, sd, (lo, hi), _ = kparams[code]
+        x, y = wxy[wid]
+        k_ms = float(np.clip(10 ** (mu + sd * 0.8 * fields[code](np.array([x]), np.array([y]))[0]), lo, hi))
+        t0 = rc * rc * np.log(screen / rw) / (2 * screen * k_ms)
+        for n, h0 in enumerate((0.5, -0.5), start=1):
+            tid = f"SL{n}"
+            for t in np.linspace(0, 4 * t0, 40):
+                noise = 1 + 0.01 * rng.normal()
+                slug_rows.append([wid, zid, tid, f"{t:.3f}", f"{h0 * np.exp(-t / t0) * noise:.5f}"])
+            slug_geom.append([wid, zid, tid, rc, rw, screen, "", "", f"2022-05-{10 + n:02d}"])
+
     pumping = []
     rates = [("1500", "m3/d"), ("350", "gpm"), ("12", "L/s"), ("900", "m3/d")]
     for p, (rate, unit) in zip(pumpers, rates):
@@ -216,6 +232,9 @@ def build(out: Path) -> dict[str, int]:
     _write(out / "heads.csv", ["well_id", "zone_id", "measured_at", "head", "depth_to_water", "ref_elev", "quality"],
            head_rows)
     _write(out / "pumping.csv", ["well_id", "zone_id", "rate", "rate_unit", "start", "end"], pumping)
+    _write(out / "slugtests.csv", ["well_id", "zone_id", "test_id", "t_s", "displacement"], slug_rows)
+    _write(out / "sluggeometry.csv", ["well_id", "zone_id", "test_id", "casing_radius", "well_radius",
+                                      "screen_length", "aquifer_thickness", "static_depth", "tested_on"], slug_geom)
     _write(out / "springs.csv", ["spring_id", "x", "y", "elev", "name", "unit"], springs)
     _write(out / "discharge.csv", ["spring_id", "measured_at", "discharge", "rate_unit"], discharge)
     _write_areas(out / "areas.geojson")

@@ -535,6 +535,25 @@ def grid(store, cell, origin, shape, rotation, layers, kv_ratio, k_source, min_t
 
 
 @main.command()
+@click.argument("store")
+@click.option("--method", type=click.Choice(workflows.SLUG_METHODS), default="hvorslev", show_default=True)
+@click.option("--no-write", is_flag=True, help="Only report; do not store the K values as K tests.")
+@click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
+def slugs(store, method, no_write, fmt):
+    """Reduce slug-test records to K (Hvorslev 1951 or Bouwer and Rice 1976) and store them as K tests.
+
+    Fits ln(H/H0) over H/H0 0.15-0.25 (Hvorslev) or 0.20-0.30 (Bouwer and Rice); repeat
+    tests of a zone that differ by more than 25 % are flagged. Import the records
+    (kind slugtests) and the well geometry (kind sluggeometry) first.
+    """
+    with open_store(store) as s:
+        out = workflows.reduce_slug_tests(s, method=method, write=not no_write)
+    cols = [c for c in ("well_id", "zone_id", "test_id", "method", "k_ms", "r2", "repeat_disagree", "problem")
+            if c in out]
+    _emit(out[cols], fmt)
+
+
+@main.command()
 @click.option("--out", default="demo_out", show_default=True, type=click.Path(file_okay=False),
               help="Folder for the demo store and its outputs.")
 def demo(out):

@@ -13,7 +13,8 @@ import pandas as pd
 from . import workflows
 
 DEMO_POROSITY = 0.02  # effective porosity of the karst limestone (invented, plausible for fractured carbonate)
-IMPORT_ORDER = ("units", "wells", "picks", "zones", "ktests", "heads", "pumping", "springs", "discharge", "areas")
+IMPORT_ORDER = ("units", "wells", "picks", "zones", "ktests", "heads", "pumping", "springs", "discharge", "areas",
+                "slugtests", "sluggeometry")
 _FILES = {kind: f"{kind}.csv" for kind in IMPORT_ORDER}
 _FILES["areas"] = "areas.geojson"
 
@@ -50,6 +51,10 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
         for kind in IMPORT_ORDER:
             report = workflows.import_data(store, kind, region / _FILES[kind])
             echo(report.summary())
+        slugs = workflows.reduce_slug_tests(store, method="hvorslev")
+        echo(f"slug tests: {int(slugs['k_ms'].notna().sum())} reduced by Hvorslev and stored as K tests "
+             f"({int(slugs['repeat_disagree'].sum())} flagged for disagreeing repeats)")
+        slugs.to_csv(out / "slug_tests.csv", index=False)
         stats_rows = workflows.unit_stats(store, k_unit="m/d")
         (out / "unit_stats.json").write_text(json.dumps(stats_rows, indent=2, default=float))
         table = pd.DataFrame(stats_rows)[["unit", "role", "n_tests", "n_zones", "n_wells", "k_geomean",

@@ -25,7 +25,10 @@ from . import schema
 from .base import Store
 from .tables import Cells, read_csv_table
 
-KINDS = ("units", "wells", "picks", "zones", "ktests", "heads", "pumping", "springs", "discharge", "areas")
+KINDS = ("units", "wells", "picks", "zones", "ktests", "heads", "pumping", "springs", "discharge", "areas",
+         "slugtests", "sluggeometry")
+#: the store table of each kind (the same name unless listed)
+TABLE_OF = {"slugtests": "slug_records", "sluggeometry": "slug_geometry"}
 
 REQUIRED = {
     "units": ("code", "name", "rank", "role"),
@@ -38,6 +41,8 @@ REQUIRED = {
     "springs": ("spring_id", "x", "y", "elev"),
     "discharge": ("spring_id", "measured_at", "discharge", "rate_unit"),
     "areas": ("area_id", "kind"),
+    "slugtests": ("well_id", "zone_id", "test_id", "t_s", "displacement"),
+    "sluggeometry": ("well_id", "zone_id", "test_id", "casing_radius", "well_radius", "screen_length"),
 }
 OPTIONAL = {
     "units": ("parent",),
@@ -50,6 +55,8 @@ OPTIONAL = {
     "springs": ("name", "unit"),
     "discharge": (),
     "areas": ("unit",),
+    "slugtests": (),
+    "sluggeometry": ("aquifer_thickness", "static_depth", "tested_on"),
 }
 # Head given together with ref_elev - depth_to_water must agree to this, in the store's length unit.
 HEAD_CONSISTENCY_TOL = 0.01
@@ -103,7 +110,7 @@ def import_file(store: Store, kind: str, path: str | Path, *, input_crs=None,
     digest = hashlib.sha256(path.read_bytes()).hexdigest()
     frame["source_file"] = label
     with store.transaction():
-        result = store.upsert(kind, frame, geometry=geometry, progress=progress)
+        result = store.upsert(TABLE_OF.get(kind, kind), frame, geometry=geometry, progress=progress)
         store.log_import(kind, label, digest, result)
     return ImportReport(kind, label, result.rows, result.inserted, result.updated)
 
@@ -489,6 +496,37 @@ def _prepare_areas(store, path, label, crs_in):
              for i in range(len(gdf))]
     frame = pd.DataFrame({"area_id": area_id, "kind": kind, "unit": unit, "attrs": attrs, "source_row": cells.rows})
     return frame, geoms
+
+
+def _prepare_slugtests(store, path, label, crs_in):
+    cells = _read(path, label, "slugtests")
+    well_id, zone_id, test_id = cells.text("well_id"), cells.text("zone_id"), cells.text("test_id")
+    t_s = cells.number("t_s", nonnegative=True)
+    disp = cells.number("displacement")
+    t_text = pd.Series(t_s).map(repr)
+    _unique(cells, [well_id, zone_id, test_id, t_text], ("well_id", "zone_id", "test_id", "t_s"))
+    _zone_refs(cells, store, well_id, zone_id)
+    frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "test_id": test_id, "t_s": t_s,
+                          "displacement": disp, "attrs": cells.attrs(_known("slugtests")), "source_row": cells.rows})
+    return frame, None
+
+
+def _prepare_sluggeometry(store, path, label, crs_in):
+    cells = _read(path, label, "sluggeometry")
+    well_id, zone_id, test_id = cells.text("well_id"), cells.text("zone_id"), cells.text("test_id")
+    rc = cells.number("casing_radius", positive=True)
+    rw = cells.number("well_radius", positive=True)
+    le = cells.number("screen_length", positive=True)
+    b = cells.number("aquifer_thickness", required=False, positive=True)
+    sd = cells.number("static_depth", required=False, nonnegative=True)
+    tested_on = cells.timestamp("tested_on", required=False, date_only=True)
+    _unique(cells, [well_id, zone_id, test_id], ("well_id", "zone_id", "test_id"))
+    _zone_refs(cells, store, well_id, zone_id)
+    frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "test_id": test_id, "casing_radius": rc,
+                          "well_radius": rw, "screen_length": le, "aquifer_thickness": b, "static_depth": sd,
+                          "tested_on": tested_on, "attrs": cells.attrs(_known("sluggeometry")),
+                          "source_row": cells.rows})
+    return frame, None
 
 
 _PREPARERS = {kind: globals()[f"_prepare_{kind}"] for kind in KINDS}

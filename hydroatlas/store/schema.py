@@ -175,7 +175,7 @@ _add(Table(
     "slug_geometry",
     (C("well_id", not_null=True), C("zone_id", not_null=True), C("test_id", not_null=True),
      C("casing_radius", "REAL", True), C("well_radius", "REAL", True), C("screen_length", "REAL", True),
-     C("aquifer_thickness", "REAL"), C("static_depth", "REAL")),
+     C("aquifer_thickness", "REAL"), C("static_depth", "REAL"), C("tested_on")),
     key=("well_id", "zone_id", "test_id"),
     foreign_keys=((("well_id", "zone_id"), "zones", ("well_id", "zone_id")),),
     checks=("casing_radius > 0", "well_radius > 0", "screen_length > 0"),
