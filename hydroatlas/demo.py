@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import json
 import runpy
-import shutil
 from pathlib import Path
 from typing import Callable
 

@@ -3,10 +3,8 @@
 import filecmp
 import json
 import runpy
-from pathlib import Path
 
 import numpy as np
-import pandas as pd
 import pytest
 
 from hydroatlas import open_store

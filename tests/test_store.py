@@ -2,7 +2,6 @@
 
 import sqlite3
 
-import numpy as np
 import pyogrio
 import pytest
 from pyproj import CRS as PCRS

@@ -140,7 +140,7 @@ def test_map_html_is_self_contained(map_store, runner):
 
 def _browser():
     try:
-        from playwright.sync_api import sync_playwright  # noqa: F401
+        from playwright.sync_api import sync_playwright
     except ImportError:
         if require_all():
             pytest.fail("playwright is not installed (pip install -e '.[test]')")
@@ -149,8 +149,6 @@ def _browser():
         if require_all():
             pytest.fail("Debian's chromium is not installed (.ci/run installs it)")
         pytest.skip("chromium is not installed")
-    from playwright.sync_api import sync_playwright
-
     return sync_playwright
 
 

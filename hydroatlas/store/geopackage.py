@@ -11,7 +11,6 @@ the result as ordinary GeoPackage layers.
 
 from __future__ import annotations
 
-import json
 import os
 import sqlite3
 import struct
@@ -27,7 +26,7 @@ from pyproj import CRS
 
 from ..errors import NotAStoreError, ParameterError, StoreError
 from .base import Store, StoreSettings, WriteResult
-from .schema import FEATURE_TABLES, SCHEMA_VERSION, TABLES, Table
+from .schema import SCHEMA_VERSION, TABLES, Table
 
 GPKG_APPLICATION_ID = 0x47504B47  # "GPKG"
 GPKG_USER_VERSION = 10400          # GeoPackage 1.4

@@ -8,7 +8,7 @@ JSON), ``source_file`` and ``source_row`` (1-based data row of the input file).
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 UNIT_ROLES = ("aquifer", "aquitard", "confining", "other")
 WELL_KINDS = ("monitoring", "multizone", "pumping", "supply", "other")

@@ -419,7 +419,7 @@ def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=
         raise ParameterError(f"--min-thickness must be > 0; got {min_thickness}")
     if k_source not in ("mean", "surface"):
         raise ParameterError(f"k_source must be 'mean' or 'surface'; got {k_source!r}")
-    crs_to_m = _crs_to_m(store)
+    _crs_to_m(store)  # refuses a geographic store CRS
     units = store.read("units").sort_values("rank")
     picks_all = assign.finest_picks(store.read("picks"), units)
     wells = store.read("wells", ["well_id", "x", "y", "ground_elev", "total_depth"])
