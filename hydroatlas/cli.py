@@ -10,6 +10,7 @@ import json
 import math
 import sys
 import traceback
+from contextlib import contextmanager
 
 import click
 import pandas as pd
@@ -95,11 +96,20 @@ def _emit(frame: pd.DataFrame, fmt: str, records=None):
                    if not frame.empty else "(nothing to show)")
 
 
-def _progress(label):
+def _progress(label, unit=" rows"):
+    """A progress bar on a terminal; silent when stderr is not a terminal."""
     from tqdm import tqdm
 
-    bar = tqdm(desc=label, unit=" rows", disable=not sys.stderr.isatty(), leave=False)
-    return bar
+    return tqdm(desc=label, unit=unit, disable=not sys.stderr.isatty(), leave=False)
+
+
+@contextmanager
+def _progress_bar(label):
+    bar = _progress(label)
+    try:
+        yield bar
+    finally:
+        bar.close()
 
 
 @main.command()
@@ -266,12 +276,13 @@ def surface(store, unit, quantity, method, window, at, cell, variogram, nugget, 
 
     Example: hydroatlas surface district.gpkg --unit ULS --quantity head --window 2024-03-01/2024-03-31
     """
-    with open_store(store) as s:
+    with open_store(store) as s, _progress_bar("grid rows") as bar:
         result = workflows.build_surface(s, unit, quantity, method=method, window=window, at=at, cell=cell,
                                          variogram=variogram, nugget=nugget, sill=sill, range_=range_,
                                          neighbors="auto" if neighbors is None else (neighbors or None),
                                          buffer=buffer, out=out,
-                                         fallback_idw=fallback_idw, max_cells=max_cells, lower_unit=lower_unit)
+                                         fallback_idw=fallback_idw, max_cells=max_cells, lower_unit=lower_unit,
+                                         progress=bar.update)
     cv = result["cross_validation"].get(result["selected_method"], {})
     click.echo(f"{unit} {quantity} by {result['selected_method']} from {result['n_points']} wells; "
                f"leave-one-out RMSE {cv.get('rmse', float('nan')):.4g} {result['value_unit']}")
