@@ -18,10 +18,16 @@ KARST_WARNING = ("Darcy travel times on a smooth head surface are upper bounds i
                  "orders of magnitude faster, and particle paths do not see conduits, faults or barriers.")
 
 
-def _recharge_areas(store: Store, unit: str):
+def _unit_recharge(store: Store, unit: str):
+    """Recharge areas of a unit (those naming it or no unit); possibly empty."""
     areas = store.read_geometries("areas")
-    rech = areas[(areas["kind"] == "recharge") & (areas["unit"].isna() | (areas["unit"] == unit))] \
-        if not areas.empty else areas
+    if areas.empty:
+        return areas
+    return areas[(areas["kind"] == "recharge") & (areas["unit"].isna() | (areas["unit"] == unit))]
+
+
+def _recharge_areas(store: Store, unit: str):
+    rech = _unit_recharge(store, unit)
     if rech.empty:
         raise ParameterError(f"the store has no recharge area for unit {unit}; import one with "
                              "'hydroatlas import STORE areas FILE' (kind recharge)")
@@ -209,9 +215,7 @@ def _contributing_areas(store: Store, unit: str, field, grid, head, springs, sin
                      max_step=0.5 * grid.cell)
     shape = valid[::stride, ::stride].shape
     transform = from_origin(grid.x0, grid.y0, grid.cell * stride, grid.cell * stride)
-    areas = store.read_geometries("areas")
-    rech = areas[(areas["kind"] == "recharge") & (areas["unit"].isna() | (areas["unit"] == unit))] \
-        if not areas.empty else areas
+    rech = _unit_recharge(store, unit)
     polys, rows_out = [], []
     for j, sid in enumerate(springs["spring_id"]):
         reach = res.end_sink == j
