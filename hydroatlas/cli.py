@@ -134,22 +134,30 @@ def init(store, crs, length_unit, vertical_datum):
 @click.argument("kind", type=click.Choice(KINDS))
 @click.argument("file", type=click.Path(dir_okay=False))
 @click.option("--input-crs", default=None, help="CRS of the file's coordinates if not the store's.")
-def import_(store, kind, file, input_crs):
+@click.option("--clear-empty", is_flag=True,
+              help="An empty cell of an optional column clears the stored value (by default it keeps it).")
+def import_(store, kind, file, input_crs, clear_empty):
     """Import one file of KIND into the store, whole or not at all.
 
-    Re-importing a file updates rows by their natural key and adds no duplicates.
-    Import in this order: units, wells, picks, zones, then ktests, heads,
-    pumping; springs before discharge; areas any time after units.
+    Re-importing a file updates rows by their natural key and adds no duplicates;
+    every value it changes keeps its earlier version in the record history
+    ('hydroatlas history'). Optional columns left out of the file, and empty
+    optional cells, keep the stored values. Import in this order: units, wells,
+    picks, zones, then ktests, heads, pumping; springs before discharge; areas
+    any time after units.
 
     Example: hydroatlas import district.gpkg wells wells.csv --input-crs EPSG:4326
     """
     with open_store(store) as s:
         bar = _progress(kind)
         try:
-            report = workflows.import_data(s, kind, file, input_crs=input_crs, progress=bar.update)
+            report = workflows.import_data(s, kind, file, input_crs=input_crs, progress=bar.update,
+                                           clear_empty=clear_empty)
         finally:
             bar.close()
     click.echo(report.summary())
+    for note in report.notes:
+        click.echo(f"note: {note}")
 
 
 @main.command()
@@ -576,3 +584,79 @@ def demo(out):
 
 if __name__ == "__main__":  # pragma: no cover
     main()
+
+
+_RECORD_ID_HELP = ("Each ID is the record's key, its parts joined by '/': a well 'W1', a zone 'W1/P2', a K test "
+                   "'W1/P2/T7' (or 'W1/P2/slug@2024-05-01' when the file gave no test_id), a head "
+                   "'W1/P2/2024-05-01T10:00:00'.")
+
+
+@main.command()
+@click.argument("store")
+@click.argument("kind", type=click.Choice(KINDS))
+@click.argument("ids", nargs=-1, required=True)
+@click.option("--reason", required=True, help="Why the records are retired (kept with them).")
+def retire(store, kind, ids, reason):
+    """Take records out of every computation without deleting them.
+
+    Retired records stay in the store, are listed by 'check' and come back
+    with 'restore'. Zones, tests and readings of a retired well (or zone, or
+    spring) leave the computations with it.
+
+    Example: hydroatlas retire district.gpkg ktests W1/P2/T7 --reason "packer leak found in the field log"
+    """
+    with open_store(store) as s:
+        n = workflows.retire_records(s, kind, list(ids), reason=reason)
+    click.echo(f"retired {n} {kind} record(s)" + (f"; {len(ids) - n} already retired" if n < len(ids) else ""))
+
+
+retire.help += "\n\n" + _RECORD_ID_HELP
+
+
+@main.command()
+@click.argument("store")
+@click.argument("kind", type=click.Choice(KINDS))
+@click.argument("ids", nargs=-1, required=True)
+def restore(store, kind, ids):
+    """Bring retired records back into the computations.
+
+    Example: hydroatlas restore district.gpkg ktests W1/P2/T7
+    """
+    with open_store(store) as s:
+        n = workflows.restore_records(s, kind, list(ids))
+    click.echo(f"restored {n} {kind} record(s)" + (f"; {len(ids) - n} were not retired" if n < len(ids) else ""))
+
+
+restore.help += "\n\n" + _RECORD_ID_HELP
+
+
+@main.command()
+@click.argument("store")
+@click.argument("kind", type=click.Choice(KINDS))
+@click.argument("id_")
+@click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
+def history(store, kind, id_, fmt):
+    """Print every version of one record, oldest first; the last line is the current version.
+
+    Example: hydroatlas history district.gpkg wells W1
+    """
+    with open_store(store) as s:
+        versions = workflows.record_history(s, kind, id_)
+    _emit(pd.DataFrame(versions), fmt, versions)
+
+
+history.help += "\n\n" + _RECORD_ID_HELP
+
+
+@main.command()
+@click.argument("store")
+def upgrade(store):
+    """Migrate a store made by an older hydroatlas to this release's schema, in one transaction.
+
+    Example: hydroatlas upgrade district.gpkg
+    """
+    from .store import upgrade_store
+
+    old, new = upgrade_store(store)
+    click.echo(f"{store}: schema version {old} is current" if old == new
+               else f"{store}: schema version {old} upgraded to {new}")

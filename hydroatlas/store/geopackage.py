@@ -26,7 +26,7 @@ from pyproj import CRS
 
 from ..errors import NotAStoreError, ParameterError, StoreError
 from .base import Store, StoreSettings, WriteResult
-from .schema import SCHEMA_VERSION, TABLES, Table
+from .schema import HISTORY_TABLE, SCHEMA_VERSION, TABLES, Table
 
 GPKG_APPLICATION_ID = 0x47504B47  # "GPKG"
 GPKG_USER_VERSION = 10400          # GeoPackage 1.4
@@ -87,6 +87,7 @@ def table_ddl(spec: Table) -> list[str]:
     cols += [_column_sql(c) for c in spec.columns]
     if spec.provenance:
         cols += ["attrs TEXT", "source_file TEXT NOT NULL", "source_row INTEGER NOT NULL"]
+        cols += [f"{q(c)} TEXT" for c in spec.lifecycle]
     for check in spec.checks:
         cols.append(f"CHECK ({check})")
     for local, parent, remote in spec.foreign_keys:
@@ -96,7 +97,37 @@ def table_ddl(spec: Table) -> list[str]:
     if spec.key:
         stmts.append(f"CREATE UNIQUE INDEX {q(spec.name + '_key')} ON {q(spec.name)} "
                      f"({', '.join(map(q, spec.key))})")
-    return stmts
+    return stmts + history_triggers(spec)
+
+
+def history_triggers(spec: Table) -> list[str]:
+    """Triggers that copy a record's previous version into the history table before it changes or goes.
+
+    Triggers (not Python) so that every writer is covered: an import, retire and
+    restore, and a desktop GIS editing the GeoPackage directly.
+    """
+    if not spec.provenance or not spec.key:
+        return []
+    cols = list(spec.column_names) + list(spec.lifecycle)
+    if spec.geometry:
+        cols.append("geom")
+    old = ", ".join(f"'{c}', " + (f"hex(OLD.{q(c)})" if c == "geom" else f"OLD.{q(c)}") for c in cols)
+    key = ", ".join(f"OLD.{q(c)}" for c in spec.key)
+    differs = " OR ".join(f"OLD.{q(c)} IS NOT NEW.{q(c)}" for c in cols)
+    action = ("CASE WHEN OLD.retired_at IS NULL AND NEW.retired_at IS NOT NULL THEN 'retire' "
+              "WHEN OLD.retired_at IS NOT NULL AND NEW.retired_at IS NULL THEN 'restore' ELSE 'update' END")
+    insert = (f"INSERT INTO {q(HISTORY_TABLE)} (table_name, record_key, action, changed_at, old_version, "
+              "new_source_file, reason) VALUES ")
+    now = "strftime('%Y-%m-%dT%H:%M:%fZ','now')"
+    name = spec.name
+    return [
+        f"CREATE TRIGGER {q(name + '_keep_history_update')} BEFORE UPDATE ON {q(name)} WHEN {differs} BEGIN "
+        f"{insert}('{name}', json_array({key}), {action}, {now}, json_object({old}), "
+        "CASE WHEN OLD.retired_at IS NOT NEW.retired_at THEN NULL ELSE NEW.source_file END, "
+        f"CASE WHEN NEW.retired_at IS NOT NULL THEN NEW.retired_reason END); END",
+        f"CREATE TRIGGER {q(name + '_keep_history_delete')} BEFORE DELETE ON {q(name)} BEGIN "
+        f"{insert}('{name}', json_array({key}), 'delete', {now}, json_object({old}), NULL, NULL); END",
+    ]
 
 
 _GPKG_SYSTEM_DDL = [
@@ -220,6 +251,12 @@ class GeoPackageStore(Store):
         conn.execute("PRAGMA cache_size = -262144")  # 256 MiB page cache for large imports
         return conn
 
+    @property
+    def schema_version(self) -> str:
+        from .upgrade import read_version
+
+        return read_version(self._conn)
+
     # -- reading --------------------------------------------------------------
     def _spec(self, table: str) -> Table:
         try:
@@ -227,19 +264,47 @@ class GeoPackageStore(Store):
         except KeyError:
             raise ParameterError(f"unknown table {table!r}; expected one of {sorted(TABLES)}") from None
 
-    def read(self, table: str, columns: list[str] | None = None) -> pd.DataFrame:
+    def read(self, table: str, columns: list[str] | None = None, *, include_retired: bool = False) -> pd.DataFrame:
+        """Rows of ``table`` in import order; retired records (and rows of retired wells, zones or springs)
+        are left out unless ``include_retired``."""
         spec = self._spec(table)
         cols = list(columns) if columns else list(spec.column_names)
-        bad = set(cols) - set(spec.column_names)
+        bad = set(cols) - set(spec.column_names) - set(spec.lifecycle)
         if bad:
             raise ParameterError(f"table {table} has no column(s) {sorted(bad)}")
-        sql = f"SELECT {', '.join(map(q, cols))} FROM {q(table)} ORDER BY fid"
+        where = "" if include_retired else self._active_where(spec, "t")
+        sql = f"SELECT {', '.join('t.' + q(c) for c in cols)} FROM {q(table)} AS t{where} ORDER BY t.fid"
         cur = self._conn.execute(sql)
         frame = pd.DataFrame.from_records(cur.fetchall(), columns=cols)
         for c in spec.columns:
             if c.name in frame and c.sql_type == "REAL":
                 frame[c.name] = pd.to_numeric(frame[c.name]).astype(float)
         return frame
+
+    def _has_retired(self, spec: Table) -> bool:
+        """True when this table or a parent it cascades from holds a retired row."""
+        if spec.provenance and self._conn.execute(
+                f"SELECT 1 FROM {q(spec.name)} WHERE retired_at IS NOT NULL LIMIT 1").fetchone():
+            return True
+        return any(self._has_retired(TABLES[parent]) for _, parent, _ in spec.cascade_parents)
+
+    def _active_where(self, spec: Table, alias: str) -> str:
+        conds = self._active_conditions(spec, alias)
+        return (" WHERE " + " AND ".join(conds)) if conds else ""
+
+    def _active_conditions(self, spec: Table, alias: str) -> list[str]:
+        if not spec.provenance or not self._has_retired(spec):
+            return []
+        conds = [f"{alias}.retired_at IS NULL"]
+        for i, (local, parent, remote) in enumerate(spec.cascade_parents):
+            pspec = TABLES[parent]
+            if not self._has_retired(pspec):
+                continue
+            pa = f"{alias}_{i}"
+            join = " AND ".join(f"{pa}.{q(r)} = {alias}.{q(lc)}" for lc, r in zip(local, remote))
+            inner = " AND ".join([join] + self._active_conditions(pspec, pa))
+            conds.append(f"EXISTS (SELECT 1 FROM {q(parent)} AS {pa} WHERE {inner})")
+        return conds
 
     def read_geometries(self, table: str):
         import geopandas as gpd
@@ -248,7 +313,8 @@ class GeoPackageStore(Store):
         if not spec.geometry:
             raise ParameterError(f"table {table} has no geometry")
         frame = self.read(table)
-        blobs = [r[0] for r in self._conn.execute(f"SELECT geom FROM {q(table)} ORDER BY fid")]
+        where = self._active_where(spec, "t")
+        blobs = [r[0] for r in self._conn.execute(f"SELECT t.geom FROM {q(table)} AS t{where} ORDER BY t.fid")]
         geoms = decode_geometries(blobs) if blobs else []
         return gpd.GeoDataFrame(frame, geometry=list(geoms), crs=self.settings.crs)
 
@@ -285,7 +351,8 @@ class GeoPackageStore(Store):
         self._conn.executemany(sql, rows)
 
     def upsert(self, table: str, frame: pd.DataFrame, *, geometry=None,
-               progress: Callable[[int], None] | None = None) -> WriteResult:
+               progress: Callable[[int], None] | None = None, keep_when_null: tuple[str, ...] = (),
+               merge_attrs: bool = True) -> WriteResult:
         if not self._in_txn:
             raise StoreError("upsert must run inside store.transaction()")
         spec = self._spec(table)
@@ -311,13 +378,23 @@ class GeoPackageStore(Store):
         sql = f"INSERT INTO {q(table)} ({', '.join(map(q, cols))}) VALUES ({', '.join(slots)})"
         if spec.key:
             changeable = [c for c in cols if c not in spec.key and c not in ("source_file", "source_row")]
-            sets = [f"{q(c)} = excluded.{q(c)}" for c in changeable + ["source_file", "source_row"]
-                    if c in cols]
-            differs = " OR ".join(f"{q(table)}.{q(c)} IS NOT excluded.{q(c)}" for c in changeable) or "0"
+            tq = q(table)
+            new_value = {}
+            for c in changeable:
+                if c == "attrs" and merge_attrs:
+                    new_value[c] = (f"CASE WHEN excluded.attrs IS NULL THEN {tq}.attrs WHEN {tq}.attrs IS NULL "
+                                    f"THEN excluded.attrs ELSE json_patch({tq}.attrs, excluded.attrs) END")
+                elif c in keep_when_null:
+                    new_value[c] = f"COALESCE(excluded.{q(c)}, {tq}.{q(c)})"
+                else:
+                    new_value[c] = f"excluded.{q(c)}"
+            sets = [f"{q(c)} = {new_value[c]}" for c in changeable]
+            sets += [f"{q(c)} = excluded.{q(c)}" for c in ("source_file", "source_row") if c in cols]
+            differs = " OR ".join(f"{tq}.{q(c)} IS NOT ({new_value[c]})" for c in changeable) or "0"
             sql += (f" ON CONFLICT ({', '.join(map(q, spec.key))}) DO UPDATE SET {', '.join(sets)}"
                     f" WHERE {differs}")
         before = self.count(table)
-        changes0 = self._conn.total_changes
+        history_before = self.count(HISTORY_TABLE)
         rows = list(zip(*arrays)) if arrays else []
         for start in range(0, len(rows), CHUNK_ROWS):
             chunk = rows[start:start + CHUNK_ROWS]
@@ -325,7 +402,8 @@ class GeoPackageStore(Store):
             if progress:
                 progress(len(chunk))
         inserted = self.count(table) - before
-        updated = self._conn.total_changes - changes0 - inserted
+        # every real update leaves exactly one earlier version in the history table
+        updated = self.count(HISTORY_TABLE) - history_before
         if spec.geometry and rows:
             self._refresh_extent(table)
         return WriteResult(len(rows), inserted, updated)
@@ -336,6 +414,83 @@ class GeoPackageStore(Store):
         self._conn.execute(
             "UPDATE gpkg_contents SET min_x=?, min_y=?, max_x=?, max_y=?, last_change=? WHERE table_name=?",
             (minx, miny, maxx, maxy, _now(), table))
+
+    # -- record lifecycle ---------------------------------------------------
+    def _key_sql(self, spec: Table) -> str:
+        return " || '/' || ".join(f"CAST({q(c)} AS TEXT)" for c in spec.key)
+
+    def find_records(self, table: str, ids: list[str]) -> dict[str, int]:
+        """fid of each record named by ``ids`` (its natural-key values joined by '/').
+
+        Raises ParameterError naming the ids that match no record.
+        """
+        spec = self._spec(table)
+        if not spec.key or not spec.provenance:
+            raise ParameterError(f"records of {table} have no key to name them by")
+        found, missing = {}, []
+        for ident in ids:
+            rows = self._conn.execute(f"SELECT fid FROM {q(table)} WHERE {self._key_sql(spec)} = ?",
+                                      (ident,)).fetchall()
+            if rows:
+                found[ident] = rows[0][0]
+            else:
+                missing.append(ident)
+        if missing:
+            raise ParameterError(f"no {table} record {', '.join(map(repr, missing))}; name a record by its key "
+                                 f"({'/'.join(spec.key)})")
+        return found
+
+    def set_retired(self, table: str, ids: list[str], *, reason: str | None) -> int:
+        """Retire (``reason`` given) or restore (``reason`` None) records; returns how many changed."""
+        if not self._in_txn:
+            raise StoreError("set_retired must run inside store.transaction()")
+        spec = self._spec(table)
+        fids = self.find_records(table, ids)
+        changed = 0
+        for fid in fids.values():
+            if reason is None:
+                cur = self._conn.execute(f"UPDATE {q(table)} SET retired_at = NULL, retired_reason = NULL "
+                                         "WHERE fid = ? AND retired_at IS NOT NULL", (fid,))
+            else:
+                cur = self._conn.execute(f"UPDATE {q(table)} SET retired_at = ?, retired_reason = ? "
+                                         "WHERE fid = ? AND retired_at IS NULL", (_now(), reason, fid))
+            changed += cur.rowcount
+        self._conn.execute("UPDATE gpkg_contents SET last_change=? WHERE table_name=?", (_now(), spec.name))
+        return changed
+
+    def retired(self) -> pd.DataFrame:
+        """Every retired record: table, key, when and why."""
+        rows = []
+        for spec in TABLES.values():
+            if not spec.provenance or not spec.key:
+                continue
+            for key, at, reason in self._conn.execute(
+                    f"SELECT {self._key_sql(spec)}, retired_at, retired_reason FROM {q(spec.name)} "
+                    "WHERE retired_at IS NOT NULL ORDER BY fid"):
+                rows.append({"table": spec.name, "record": key, "retired_at": at, "reason": reason})
+        return pd.DataFrame(rows, columns=["table", "record", "retired_at", "reason"])
+
+    def record_versions(self, table: str, ident: str) -> list[dict]:
+        """Every version of one record, oldest first; the last is the current one."""
+        import json
+
+        spec = self._spec(table)
+        fid = self.find_records(table, [ident])[ident]
+        cols = list(spec.column_names) + list(spec.lifecycle)
+        current = dict(zip(cols, self._conn.execute(
+            f"SELECT {', '.join(map(q, cols))} FROM {q(table)} WHERE fid = ?", (fid,)).fetchone()))
+        key = json.dumps([current[c] for c in spec.key], ensure_ascii=False, separators=(",", ":"))
+        out = []
+        for action, at, old, new_file, reason in self._conn.execute(
+                f"SELECT action, changed_at, old_version, new_source_file, reason FROM {q(HISTORY_TABLE)} "
+                "WHERE table_name = ? AND record_key = ? ORDER BY fid", (table, key)):
+            version = json.loads(old)
+            version.pop("geom", None)
+            out.append({"version": len(out) + 1, "replaced_at": at, "replaced_by": action,
+                        "replaced_by_file": new_file, "reason": reason, **version})
+        out.append({"version": len(out) + 1, "replaced_at": None, "replaced_by": None, "replaced_by_file": None,
+                    "reason": None, **current})
+        return out
 
     def log_import(self, kind: str, file: str, sha256: str, result: WriteResult) -> None:
         if not self._in_txn:

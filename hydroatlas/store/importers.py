@@ -8,8 +8,10 @@ transaction and upsert; a failure midway rolls the whole file back.
 
 from __future__ import annotations
 
+import contextvars
 import hashlib
-from dataclasses import dataclass
+import re
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
 
@@ -60,6 +62,23 @@ OPTIONAL = {
 }
 # Head given together with ref_elev - depth_to_water must agree to this, in the store's length unit.
 HEAD_CONSISTENCY_TOL = 0.01
+#: optional input columns that are not kept-when-absent values (keys, or values always written together)
+_ALWAYS_WRITTEN = {"heads": {"head", "depth_to_water", "ref_elev"}, "ktests": {"test_id"}, "pumping": {"zone_id"}}
+#: a unit code: letters, digits, '-', '_' and '.', not starting with '.' (codes name output files)
+UNIT_CODE = re.compile(r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$")
+MAX_RANK = 10_000
+
+
+@dataclass
+class _Job:
+    """Options and findings of the import under way (one per call of :func:`import_file`)."""
+
+    clear_empty: bool = False
+    header: set = field(default_factory=set)
+    notes: list = field(default_factory=list)
+
+
+_JOB: contextvars.ContextVar[_Job] = contextvars.ContextVar("hydroatlas_import_job", default=_Job())
 
 
 @dataclass(frozen=True)
@@ -69,6 +88,7 @@ class ImportReport:
     rows: int
     inserted: int
     updated: int
+    notes: tuple[str, ...] = ()
 
     @property
     def unchanged(self) -> int:
@@ -80,7 +100,7 @@ class ImportReport:
 
 
 def import_file(store: Store, kind: str, path: str | Path, *, input_crs=None,
-                progress: Callable[[int], None] | None = None) -> ImportReport:
+                progress: Callable[[int], None] | None = None, clear_empty: bool = False) -> ImportReport:
     """Validate ``path`` as input of ``kind`` and write it to ``store`` in one transaction.
 
     Parameters
@@ -94,6 +114,10 @@ def import_file(store: Store, kind: str, path: str | Path, *, input_crs=None,
         CRS of the file's coordinates when it differs from the store CRS.
     progress : callable, optional
         Called with the number of rows written after each chunk.
+    clear_empty : bool
+        An empty cell of an optional column clears the stored value. By default it keeps it, and an optional
+        column left out of the file keeps every stored value of that column; the values a re-import changes
+        go to the history table first.
 
     Raises
     ------
@@ -106,13 +130,24 @@ def import_file(store: Store, kind: str, path: str | Path, *, input_crs=None,
     label = path.name
     crs_in = _parse_crs(input_crs, label) if input_crs is not None else None
     prepare = _PREPARERS[kind]
-    frame, geometry = prepare(store, path, label, crs_in)
+    job = _Job(clear_empty=clear_empty)
+    token = _JOB.set(job)
+    try:
+        frame, geometry = prepare(store, path, label, crs_in)
+    finally:
+        _JOB.reset(token)
+    table = TABLE_OF.get(kind, kind)
+    table_columns = set(schema.TABLES[table].column_names)
+    optional = [c for c in OPTIONAL[kind] if c in table_columns and c not in _ALWAYS_WRITTEN.get(kind, set())]
+    absent = [c for c in optional if c not in job.header]
+    frame = frame.drop(columns=absent)
+    keep = () if clear_empty else tuple(c for c in optional if c in job.header)
     digest = hashlib.sha256(path.read_bytes()).hexdigest()
     frame["source_file"] = label
     with store.transaction():
-        result = store.upsert(TABLE_OF.get(kind, kind), frame, geometry=geometry, progress=progress)
+        result = store.upsert(table, frame, geometry=geometry, progress=progress, keep_when_null=keep)
         store.log_import(kind, label, digest, result)
-    return ImportReport(kind, label, result.rows, result.inserted, result.updated)
+    return ImportReport(kind, label, result.rows, result.inserted, result.updated, tuple(job.notes))
 
 
 def _parse_crs(value, label) -> CRS:
@@ -124,21 +159,26 @@ def _parse_crs(value, label) -> CRS:
 
 def _read(path, label, kind) -> Cells:
     frame = read_csv_table(path, required=REQUIRED[kind], label=label)
+    _JOB.get().header.update(c for c in frame.columns if c != "source_row")
     return Cells(frame, label)
+
+
+def _attrs(cells: Cells, kind: str) -> pd.Series:
+    return cells.attrs(_known(kind), clear_empty=_JOB.get().clear_empty)
 
 
 def _known(kind) -> set[str]:
     return set(REQUIRED[kind]) | set(OPTIONAL[kind])
 
 
-def _unique(cells: Cells, keys: list[pd.Series], names: tuple[str, ...]):
+def _unique(cells: Cells, keys: list[pd.Series], names: tuple[str, ...], hint: str = ""):
     key = pd.DataFrame({n: k.to_numpy() for n, k in zip(names, keys)})
     dup = key.duplicated(keep="first").to_numpy()
     if dup.any():
         first = int(np.flatnonzero(dup)[0])
         value = ", ".join(f"{n}={key.iloc[first][n]}" for n in names)
         earlier = key.index[(key == key.iloc[first]).all(axis=1)][0]
-        cells.fail(dup, names[-1], f"duplicate key ({value}); it already appears in row {cells.rows[earlier]}")
+        cells.fail(dup, names[-1], f"duplicate key ({value}); it already appears in row {cells.rows[earlier]}{hint}")
 
 
 def _exists(cells: Cells, values: pd.DataFrame, known: pd.DataFrame, column: str, what: str, hint: str):
@@ -162,32 +202,51 @@ def _coordinates(cells: Cells, store: Store, crs_in: CRS | None):
     y = cells.number("y")
     crs_store = store.settings.crs
     source = crs_in or crs_store
+    _check_not_degrees(cells, x, y, source)
     _check_in_crs(cells, x, y, source)
     if crs_in is None or crs_in == crs_store:
         return x, y, None
-    tr = Transformer.from_crs(crs_in, crs_store, always_xy=True)
-    xs, ys = tr.transform(x, y)
-    xs, ys = np.asarray(xs, float), np.asarray(ys, float)
-    cells.fail(~np.isfinite(xs) | ~np.isfinite(ys), "x",
-               f"the point cannot be transformed from {crs_in.name} to the store CRS {crs_store.name}")
-    _check_in_crs(cells, xs, ys, crs_store)
+    xs, ys = _transform(cells, x, y, crs_in, crs_store)
+    _check_in_crs(cells, xs, ys, crs_store, after=crs_in)
     return xs, ys, (x, y, crs_in.to_string())
 
 
-def _check_in_crs(cells: Cells, x, y, crs: CRS, pad_deg: float = 5.0):
-    """Refuse coordinates that are not finite or fall far outside the CRS's area of use."""
+def _transform(cells: Cells, x, y, crs_in: CRS, crs_out: CRS):
+    tr = Transformer.from_crs(crs_in, crs_out, always_xy=True)
+    xs, ys = tr.transform(x, y)
+    xs, ys = np.asarray(xs, float), np.asarray(ys, float)
+    cells.fail(~np.isfinite(xs) | ~np.isfinite(ys), "x",
+               f"the point cannot be transformed from {crs_in.name} to the store CRS {crs_out.name}")
+    return xs, ys
+
+
+def _check_not_degrees(cells: Cells, x, y, crs: CRS):
+    """A projected CRS with every point within +-180, +-90 is almost surely longitude/latitude given as metres."""
+    if crs.is_geographic or len(x) == 0:
+        return
+    if np.all(np.abs(x) <= 180) and np.all(np.abs(y) <= 90):
+        cells.fail(np.ones(len(x), bool), "x",
+                   f"x and y look like longitude/latitude in degrees, but {crs.name} is in "
+                   f"{crs.axis_info[0].unit_name}s; give --input-crs EPSG:4326 (x = longitude, y = latitude)")
+
+
+def _check_in_crs(cells: Cells, x, y, crs: CRS, *, after: CRS | None = None):
+    """Refuse coordinates that are not finite or fall outside the CRS's area of use (no slack)."""
     if crs.is_geographic:
         lon, lat = x, y
     else:
         tr = Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
         lon, lat = tr.transform(x, y)
         lon, lat = np.asarray(lon, float), np.asarray(lat, float)
-    bad = ~np.isfinite(lon) | ~np.isfinite(lat) | (np.abs(lat) > 90) | (np.abs(lon) > 180)
-    aou = crs.area_of_use
-    if aou is not None:
-        bad |= (lat < aou.south - pad_deg) | (lat > aou.north + pad_deg)
-        if aou.west <= aou.east:  # skip longitude test for areas across the antimeridian
-            bad |= (lon < aou.west - pad_deg) | (lon > aou.east + pad_deg)
+    with np.errstate(invalid="ignore"):
+        bad = ~np.isfinite(lon) | ~np.isfinite(lat) | (np.abs(lat) > 90) | (np.abs(lon) > 180)
+        aou = crs.area_of_use
+        if aou is not None:
+            bad |= (lat < aou.south) | (lat > aou.north)
+            if aou.west <= aou.east:
+                bad |= (lon < aou.west) | (lon > aou.east)
+            else:  # an area across the antimeridian: outside means between east and west
+                bad |= (lon > aou.east) & (lon < aou.west)
     if not crs.is_geographic and not bad.all():
         back = Transformer.from_crs(crs.geodetic_crs, crs, always_xy=True)
         with np.errstate(invalid="ignore"):
@@ -197,18 +256,27 @@ def _check_in_crs(cells: Cells, x, y, crs: CRS, pad_deg: float = 5.0):
             if aou else "")
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        cells.fail(bad, "x", f"coordinates ({x[i]:g}, {y[i]:g}) are not valid in {crs.name}{area}; "
-                   "check x and y or give --input-crs")
+        where = (f"after transforming from {after.name}, the point ({x[i]:.6g}, {y[i]:.6g}) falls outside the store "
+                 f"CRS {crs.name}{area}; check x and y (swapped? wrong --input-crs?)" if after is not None else
+                 f"coordinates ({x[i]:.6g}, {y[i]:.6g}) are not valid in {crs.name}{area}; "
+                 "check x and y (swapped?) or give --input-crs")
+        cells.fail(bad, "x", where)
 
 
 # -- kinds ---------------------------------------------------------------------
 def _prepare_units(store, path, label, crs_in):
     cells = _read(path, label, "units")
     code = cells.text("code")
+    bad_code = ~code.astype(str).str.match(UNIT_CODE).to_numpy()
+    if bad_code.any():
+        first = code.iloc[int(np.flatnonzero(bad_code)[0])]
+        cells.fail(bad_code, "code", f"unit code {first!r} is not allowed: use 1 to 64 letters, digits, '-', '_' "
+                   "or '.', not starting with '.' (codes name output files)")
     name = cells.text("name")
     rank_f = cells.number("rank")
     cells.fail(rank_f != np.round(rank_f), "rank", "rank must be a whole number (1 = top unit)")
     cells.fail(rank_f < 1, "rank", "rank must be 1 or more (1 = top unit)")
+    cells.fail(rank_f > MAX_RANK, "rank", f"rank must be at most {MAX_RANK} (1 = top unit)")
     role = cells.choice("role", schema.UNIT_ROLES)
     parent = cells.text("parent", required=False)
     _unique(cells, [code], ("code",))
@@ -232,7 +300,7 @@ def _prepare_units(store, path, label, crs_in):
             seen.add(node)
             node = parents.get(node)
     frame = pd.DataFrame({"code": code, "name": name, "rank": rank_f.astype(int), "role": role,
-                          "parent": parent, "attrs": cells.attrs(_known("units")),
+                          "parent": parent, "attrs": _attrs(cells, "units"),
                           "source_row": cells.rows})
     return frame, None
 
@@ -253,7 +321,7 @@ def _prepare_wells(store, path, label, crs_in):
         cells.fail(np.isfinite(total) & (limit > total), "total_depth",
                    "total_depth is shallower than a zone already stored for this well")
     frame = pd.DataFrame({"well_id": well_id, "x": x, "y": y, "ground_elev": ground, "total_depth": total,
-                          "kind": kind, "name": name, "attrs": cells.attrs(_known("wells")),
+                          "kind": kind, "name": name, "attrs": _attrs(cells, "wells"),
                           "source_row": cells.rows})
     if original is not None:
         frame["x_input"], frame["y_input"], frame["input_crs"] = original
@@ -280,7 +348,7 @@ def _prepare_picks(store, path, label, crs_in):
     _exists(cells, pd.DataFrame({"unit": unit}), store.read("units", ["code"]).rename(columns={"code": "unit"}),
             "unit", "unit", "import it in a units file first")
     frame = pd.DataFrame({"well_id": well_id, "unit": unit, "top_depth": top, "bottom_depth": bottom,
-                          "attrs": cells.attrs(_known("picks")), "source_row": cells.rows})
+                          "attrs": _attrs(cells, "picks"), "source_row": cells.rows})
     return frame, None
 
 
@@ -303,7 +371,7 @@ def _prepare_zones(store, path, label, crs_in):
     cells.fail(np.isfinite(total) & (bottom > total), "bottom_depth",
                "the zone reaches below the well's total_depth")
     frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "top_depth": top, "bottom_depth": bottom,
-                          "kind": kind, "unit": unit, "attrs": cells.attrs(_known("zones")),
+                          "kind": kind, "unit": unit, "attrs": _attrs(cells, "zones"),
                           "source_row": cells.rows})
     return frame, None
 
@@ -341,15 +409,17 @@ def _prepare_ktests(store, path, label, crs_in):
     if cells.has("test_id"):
         test_id = cells.text("test_id")
     else:
-        # No test_id: the test is named by its content, so a re-import matches it
-        # and two different tests of one zone on one day never overwrite each other.
-        test_id = tested_on.astype(str) + "|" + method.astype(str) + "|" + cells.frame["k"] + "|" + k_unit.astype(str)
-    _unique(cells, [well_id, zone_id, test_id], ("well_id", "zone_id", "test_id"))
+        # No test_id: a test is known by (well, zone, date, method), whatever the way its value is written,
+        # so a re-import with a corrected k updates the test (keeping the old value in the history).
+        test_id = method.astype(str) + "@" + tested_on.astype(str)
+    _unique(cells, [well_id, zone_id, test_id], ("well_id", "zone_id", "test_id"),
+            hint="" if cells.has("test_id") else
+            "; two tests of one zone by one method on one day need a test_id column to tell them apart")
     _zone_refs(cells, store, well_id, zone_id)
     factors = k_unit.map(K_UNITS).to_numpy(dtype=float)
     frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "test_id": test_id, "tested_on": tested_on,
                           "method": method, "k": k, "k_unit": k_unit, "k_ms": k * factors,
-                          "quality": quality, "source": source, "attrs": cells.attrs(_known("ktests")),
+                          "quality": quality, "source": source, "attrs": _attrs(cells, "ktests"),
                           "source_row": cells.rows})
     return frame, None
 
@@ -379,7 +449,7 @@ def _prepare_heads(store, path, label, crs_in):
     _zone_refs(cells, store, well_id, zone_id)
     frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "measured_at": measured_at, "head": head,
                           "depth_to_water": dtw, "ref_elev": ref, "quality": quality,
-                          "attrs": cells.attrs(_known("heads")), "source_row": cells.rows})
+                          "attrs": _attrs(cells, "heads"), "source_row": cells.rows})
     return frame, None
 
 
@@ -404,7 +474,7 @@ def _prepare_pumping(store, path, label, crs_in):
         cells.fail(with_zone & ~ok, "zone_id", "zone is not in the store; import it in a zones file first")
     frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "start": start, "end": end, "rate": rate,
                           "rate_unit": rate_unit, "rate_m3d": rate * rate_unit.map(RATE_UNITS).to_numpy(float),
-                          "attrs": cells.attrs(_known("pumping")), "source_row": cells.rows})
+                          "attrs": _attrs(cells, "pumping"), "source_row": cells.rows})
     return frame, None
 
 
@@ -420,7 +490,7 @@ def _prepare_springs(store, path, label, crs_in):
                "unit is not in the store; import it in a units file first")
     x, y, original = _coordinates(cells, store, crs_in)
     frame = pd.DataFrame({"spring_id": spring_id, "x": x, "y": y, "elev": elev, "name": name, "unit": unit,
-                          "attrs": cells.attrs(_known("springs")), "source_row": cells.rows})
+                          "attrs": _attrs(cells, "springs"), "source_row": cells.rows})
     if original is not None:
         frame["x_input"], frame["y_input"], frame["input_crs"] = original
     else:
@@ -439,7 +509,7 @@ def _prepare_discharge(store, path, label, crs_in):
             "spring", "import it in a springs file first")
     frame = pd.DataFrame({"spring_id": spring_id, "measured_at": measured_at, "discharge": q, "rate_unit": unit,
                           "discharge_m3d": q * unit.map(RATE_UNITS).to_numpy(float),
-                          "attrs": cells.attrs(_known("discharge")), "source_row": cells.rows})
+                          "attrs": _attrs(cells, "discharge"), "source_row": cells.rows})
     return frame, None
 
 
@@ -459,6 +529,7 @@ def _prepare_areas(store, path, label, crs_in):
                               "polygon file is expected", file=label) from None
     if gdf.empty:
         raise ImportDataError("the file has no features", file=label)
+    _JOB.get().header.update(c for c in gdf.columns if c != "geometry")
     missing = [c for c in REQUIRED["areas"] if c not in gdf.columns]
     if missing:
         raise ImportDataError(f"missing required field(s) {', '.join(missing)}", file=label, row=0,
@@ -476,8 +547,12 @@ def _prepare_areas(store, path, label, crs_in):
     cells.fail(unit.notna().to_numpy() & ~unit.isin(units).to_numpy(), "unit",
                "unit is not in the store; import it in a units file first")
     geoms = np.asarray(gdf.geometry.values, dtype=object)
+    missing_geom = np.array([g is None for g in geoms])
+    cells.fail(missing_geom, "geometry", "the feature has no geometry")
     types = shapely.get_type_id(geoms)
     cells.fail(~np.isin(types, [3, 6]), "geometry", "the feature is not a polygon or multipolygon")
+    cells.fail(shapely.is_empty(geoms) | ~(shapely.area(geoms) > 0), "geometry",
+               "the polygon is empty or has no area")
     cells.fail(~shapely.is_valid(geoms), "geometry", "the polygon is not valid (self-intersecting or degenerate)")
     file_crs = gdf.crs
     source = crs_in or (CRS.from_user_input(file_crs) if file_crs is not None else None)
@@ -486,16 +561,42 @@ def _prepare_areas(store, path, label, crs_in):
     coords = shapely.get_coordinates(geoms)
     owner = np.repeat(np.arange(len(geoms)), shapely.get_num_coordinates(geoms))
     probe = Cells(pd.DataFrame({"source_row": cells.rows[owner]}), label)
+    _check_not_degrees(probe, coords[:, 0], coords[:, 1], source)
     _check_in_crs(probe, coords[:, 0], coords[:, 1], source)  # raises naming the feature row
     if source != store.settings.crs:
         tr = Transformer.from_crs(source, store.settings.crs, always_xy=True)
         geoms = shapely.transform(geoms, lambda xy: np.column_stack(tr.transform(xy[:, 0], xy[:, 1])))
+        moved = shapely.get_coordinates(geoms)
+        _check_in_crs(probe, moved[:, 0], moved[:, 1], store.settings.crs, after=source)
+        cells.fail(~(shapely.area(geoms) > 0) | ~shapely.is_valid(geoms), "geometry",
+                   "the polygon has no area or is not valid once transformed to the store CRS")
+    _note_domain_changes(store, area_id, kind)
     geoms = np.array([g if shapely.get_type_id(g) == 6 else shapely.multipolygons([g]) for g in geoms], dtype=object)
     extra = [c for c in gdf.columns if c not in _known("areas") and c != "geometry"]
-    attrs = [json.dumps({c: text.iloc[i][c] for c in extra}, ensure_ascii=False) if extra else None
-             for i in range(len(gdf))]
+    clear = _JOB.get().clear_empty
+    attrs = []
+    for i in range(len(gdf)):
+        obj = {c: (text.iloc[i][c] or None) for c in extra if text.iloc[i][c] != "" or clear}
+        attrs.append(json.dumps(obj, ensure_ascii=False) if obj else None)
     frame = pd.DataFrame({"area_id": area_id, "kind": kind, "unit": unit, "attrs": attrs, "source_row": cells.rows})
     return frame, geoms
+
+
+def _note_domain_changes(store, area_id: pd.Series, kind: pd.Series) -> None:
+    """Say when an import replaces a stored domain polygon or adds a second domain."""
+    stored = store.read("areas", ["area_id", "kind"])
+    stored_domains = set(stored.loc[stored["kind"] == "domain", "area_id"])
+    new_domains = [a for a, k in zip(area_id, kind) if k == "domain"]
+    job = _JOB.get()
+    for a in new_domains:
+        if a in stored_domains:
+            job.notes.append(f"domain {a} replaces the stored polygon of that id (the old one is kept in the "
+                             "record history: 'hydroatlas history STORE areas " + a + "')")
+    others = stored_domains - set(new_domains)
+    if new_domains and others:
+        job.notes.append(f"the store now holds {len(others) + len(new_domains)} domain polygons "
+                         f"({', '.join(sorted(others | set(new_domains)))}); computations use their union; "
+                         "retire the ones you do not want ('hydroatlas retire STORE areas ID --reason ...')")
 
 
 def _prepare_slugtests(store, path, label, crs_in):
@@ -507,7 +608,7 @@ def _prepare_slugtests(store, path, label, crs_in):
     _unique(cells, [well_id, zone_id, test_id, t_text], ("well_id", "zone_id", "test_id", "t_s"))
     _zone_refs(cells, store, well_id, zone_id)
     frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "test_id": test_id, "t_s": t_s,
-                          "displacement": disp, "attrs": cells.attrs(_known("slugtests")), "source_row": cells.rows})
+                          "displacement": disp, "attrs": _attrs(cells, "slugtests"), "source_row": cells.rows})
     return frame, None
 
 
@@ -524,7 +625,7 @@ def _prepare_sluggeometry(store, path, label, crs_in):
     _zone_refs(cells, store, well_id, zone_id)
     frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "test_id": test_id, "casing_radius": rc,
                           "well_radius": rw, "screen_length": le, "aquifer_thickness": b, "static_depth": sd,
-                          "tested_on": tested_on, "attrs": cells.attrs(_known("sluggeometry")),
+                          "tested_on": tested_on, "attrs": _attrs(cells, "sluggeometry"),
                           "source_row": cells.rows})
     return frame, None
 

@@ -3,7 +3,13 @@
 A table lists its columns, its natural key (what makes a re-import an update
 instead of a duplicate), its foreign keys and, for the three spatial tables,
 the geometry type. Every table also carries ``attrs`` (extra input columns as
-JSON), ``source_file`` and ``source_row`` (1-based data row of the input file).
+JSON), ``source_file`` and ``source_row`` (1-based data row of the input file),
+and ``retired_at`` / ``retired_reason``: a retired record stays in the store
+but is left out of every computation (:data:`LIFECYCLE_COLUMNS`).
+
+Nothing is ever overwritten without a trace: every update, retirement,
+restoration or deletion of a record first copies the previous version into
+:data:`HISTORY_TABLE` (see ``history_triggers`` of each backend).
 """
 
 from __future__ import annotations
@@ -17,7 +23,12 @@ KTEST_METHODS = ("slug", "pumping", "packer", "core", "specific_capacity", "othe
 QUALITIES = ("good", "fair", "poor")
 AREA_KINDS = ("recharge", "domain", "noflow")
 
-SCHEMA_VERSION = "1"
+SCHEMA_VERSION = "2"
+#: versions that ``hydroatlas upgrade`` can bring to :data:`SCHEMA_VERSION`
+UPGRADABLE_VERSIONS = ("1",)
+#: columns of every provenance table that only retire/restore change
+LIFECYCLE_COLUMNS = ("retired_at", "retired_reason")
+HISTORY_TABLE = "record_history"
 
 
 def _in(column: str, values: tuple[str, ...], nullable: bool = True) -> str:
@@ -51,6 +62,15 @@ class Table:
         if self.provenance:
             names += ("attrs", "source_file", "source_row")
         return names
+
+    @property
+    def lifecycle(self) -> tuple[str, ...]:
+        return LIFECYCLE_COLUMNS if self.provenance else ()
+
+    @property
+    def cascade_parents(self) -> tuple[tuple[tuple[str, ...], str, tuple[str, ...]], ...]:
+        """Foreign keys whose columns are part of the natural key: a retired parent retires these rows too."""
+        return tuple(fk for fk in self.foreign_keys if set(fk[0]) <= set(self.key))
 
     @property
     def value_columns(self) -> tuple[str, ...]:
@@ -180,6 +200,17 @@ _add(Table(
     foreign_keys=((("well_id", "zone_id"), "zones", ("well_id", "zone_id")),),
     checks=("casing_radius > 0", "well_radius > 0", "screen_length > 0"),
     description="Well geometry of each slug test.",
+))
+_add(Table(
+    HISTORY_TABLE,
+    (C("table_name", not_null=True), C("record_key", not_null=True), C("action", not_null=True),
+     C("changed_at", not_null=True), C("old_version", not_null=True), C("new_source_file"),
+     C("reason")),
+    key=(),
+    checks=("action IN ('update', 'retire', 'restore', 'delete')",),
+    description="Earlier versions of records: every update, retirement, restoration or deletion keeps the "
+                "version it replaced (old_version as JSON, geometry as GeoPackage binary in hex).",
+    provenance=False,
 ))
 _add(Table(
     "imports",

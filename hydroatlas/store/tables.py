@@ -3,12 +3,20 @@
 Rows are numbered from 1 for the first data row; the file line is row + 1.
 Every value is read as text first so that each conversion can say exactly
 which cell it could not read.
+
+Reading is strict: a row with more or fewer fields than the header, a repeated
+header name or a NUL byte refuses the file. Every cell is trimmed of Unicode
+white space (non-breaking spaces included) and put in Unicode normal form C,
+so that ids that differ only in padding or in how an accent is encoded are
+one id.
 """
 
 from __future__ import annotations
 
 import csv
 import io
+import re
+import unicodedata
 from pathlib import Path
 
 import numpy as np
@@ -39,6 +47,11 @@ def read_csv_table(path: str | Path, *, required: tuple[str, ...], label: str | 
         raise ImportDataError(
             f"byte {exc.start} is not valid UTF-8 (0x{raw[exc.start]:02x}); save the file as UTF-8",
             file=name, row=line - 1 if line > 1 else None) from None
+    nul = text.find("\x00")
+    if nul >= 0:
+        line = text.count("\n", 0, nul) + 1
+        raise ImportDataError("the file holds a NUL byte (a binary or damaged file?); save it as plain UTF-8 CSV",
+                              file=name, row=line - 1)
     header_line = text.splitlines()[0]
     if "," not in header_line:
         for delim, word in ((";", "semicolon"), ("\t", "tab"), ("|", "pipe")):
@@ -46,9 +59,10 @@ def read_csv_table(path: str | Path, *, required: tuple[str, ...], label: str | 
                 raise ImportDataError(
                     f"the file is {word}-delimited; hydroatlas reads comma-separated files "
                     "(re-save it as CSV with commas)", file=name, row=0)
+    _check_field_counts(text, name)
     try:
         frame = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False, na_filter=False,
-                            skip_blank_lines=True, quoting=csv.QUOTE_MINIMAL)
+                            skip_blank_lines=True, quoting=csv.QUOTE_MINIMAL, index_col=False)
     except pd.errors.ParserError as exc:
         msg = str(exc)
         line = _line_from_parser_message(msg)
@@ -56,13 +70,17 @@ def read_csv_table(path: str | Path, *, required: tuple[str, ...], label: str | 
                               row=line - 1 if line else None) from None
     except pd.errors.EmptyDataError:
         raise ImportDataError("the file is empty; a header row is expected", file=name) from None
-    columns = [str(c).strip() for c in frame.columns]
-    dupes = sorted({c for c in columns if columns.count(c) > 1})
+    columns = [normalize_text(str(c)) for c in frame.columns]
+    # pandas renames a repeated header 'a' to 'a.1': compare the header as written
+    written = [normalize_text(c) for c in next(csv.reader(io.StringIO(header_line)))]
+    dupes = sorted({c for c in written if written.count(c) > 1})
     if dupes:
-        raise ImportDataError(f"the header repeats column(s) {', '.join(dupes)}", file=name, row=0)
-    blank = [i for i, c in enumerate(columns) if not c or c.startswith("Unnamed:")]
+        raise ImportDataError(f"the header repeats column(s) {', '.join(dupes)}; each column name may appear once",
+                              file=name, row=0, column=dupes[0])
+    blank = [i for i, c in enumerate(written) if not c]
     if blank:
         raise ImportDataError(f"header column {blank[0] + 1} has no name", file=name, row=0)
+    columns = written if len(written) == len(columns) else columns
     frame.columns = columns
     missing = [c for c in required if c not in columns]
     if missing:
@@ -71,12 +89,41 @@ def read_csv_table(path: str | Path, *, required: tuple[str, ...], label: str | 
             file=name, row=0, column=missing[0])
     if frame.empty:
         raise ImportDataError("the file has a header but no data rows", file=name)
-    # Stripping every cell costs more than parsing; do it only when the text has padded cells.
-    if _is_padded(text):
+    # Trimming every cell costs more than parsing; do it only when the text may hold padded or non-ASCII cells.
+    if not text.isascii():
+        for c in frame.columns:
+            frame[c] = frame[c].map(normalize_text)
+    elif _is_padded(text):
         for c in frame.columns:
             frame[c] = frame[c].str.strip()
     frame["source_row"] = np.arange(1, len(frame) + 1)
     return frame
+
+
+def normalize_text(value: str) -> str:
+    """A cell as stored: Unicode white space trimmed at both ends (non-breaking spaces too), NFC form."""
+    return unicodedata.normalize("NFC", value.strip())
+
+
+def _check_field_counts(text: str, name: str) -> None:
+    """Refuse a row with more or fewer fields than the header (pandas would shift or pad it silently)."""
+    try:
+        reader = csv.reader(io.StringIO(text), strict=True)
+        header = next(reader)
+        width = len(header)
+        row = 0
+        for fields in reader:
+            if not fields:
+                continue  # blank line: skipped by the reader below as well
+            row += 1
+            if len(fields) != width:
+                more = "more" if len(fields) > width else "fewer"
+                hint = (" (an unquoted comma inside a value? quote the value)" if more == "more"
+                        else " (a missing value? leave the cell empty with its comma)")
+                raise ImportDataError(f"the row has {len(fields)} fields, {more} than the header's {width}{hint}",
+                                      file=name, row=row)
+    except csv.Error as exc:
+        raise ImportDataError(f"cannot parse the row ({exc})", file=name, row=max(reader.line_num - 1, 0)) from None
 
 
 def _is_padded(text: str) -> bool:
@@ -90,6 +137,9 @@ def _line_from_parser_message(msg: str) -> int | None:
 
     m = re.search(r"line (\d+)", msg)
     return int(m.group(1)) if m else None
+
+
+_FULL_DATE = re.compile(r"^\d{4}-\d{2}-\d{2}(?:$|[T ])")
 
 
 class Cells:
@@ -163,12 +213,14 @@ class Cells:
             return out
         sub = values[present].astype(str)
         parsed = pd.to_datetime(sub, format="ISO8601", errors="coerce", utc=True)
-        bad = parsed.isna().to_numpy()
+        # a bare year or year-month is a period, not a date: refuse it rather than read it as the 1st of January
+        bad = parsed.isna().to_numpy() | ~sub.str.match(_FULL_DATE).to_numpy()
         if bad.any():
             mask = np.zeros(len(values), dtype=bool)
             mask[np.flatnonzero(present)[bad]] = True
             first = int(np.flatnonzero(bad)[0])
-            self.fail(mask, column, f"{sub.iloc[first]!r} is not an ISO 8601 date or time (YYYY-MM-DD[THH:MM[:SS]])")
+            self.fail(mask, column, f"{sub.iloc[first]!r} is not an ISO 8601 date or time (YYYY-MM-DD[THH:MM[:SS]]; "
+                      "a bare year or month is not a date)")
         stamps = parsed.dt.tz_localize(None).to_numpy().astype("datetime64[s]")
         text = np.datetime_as_string(stamps, unit="D" if date_only else "s").astype(object)
         if present.all():
@@ -176,13 +228,20 @@ class Cells:
         out[present] = text
         return out
 
-    def attrs(self, known: set[str]) -> pd.Series:
-        """Extra columns as a JSON object per row (None where there are none)."""
+    def attrs(self, known: set[str], *, clear_empty: bool = False) -> pd.Series:
+        """Extra columns as a JSON object per row (None where there are none).
+
+        An empty cell is left out, so that the stored value of that attribute is kept;
+        with ``clear_empty`` it is written as null, which removes the stored attribute.
+        """
         import json
 
         extra = [c for c in self.frame.columns if c not in known and c != "source_row"]
         if not extra:
             return pd.Series([None] * len(self.frame), index=self.frame.index, dtype=object)
         sub = self.frame[extra]
-        return pd.Series([json.dumps(dict(zip(extra, row)), ensure_ascii=False)
-                          for row in sub.itertuples(index=False, name=None)], index=self.frame.index, dtype=object)
+        out = []
+        for row in sub.itertuples(index=False, name=None):
+            obj = {c: (v if v != "" else None) for c, v in zip(extra, row) if v != "" or clear_empty}
+            out.append(json.dumps(obj, ensure_ascii=False) if obj else None)
+        return pd.Series(out, index=self.frame.index, dtype=object)

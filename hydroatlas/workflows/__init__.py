@@ -7,7 +7,7 @@ pathways (particle tracking, contributing areas, drawdown), outputs (maps, layer
 
 from .store_jobs import (  # noqa: F401
     init_store, import_data, zone_assignment, tests_with_units, unit_stats, well_profiles, check_store,
-    CAUTION, reduce_slug_tests, SLUG_METHODS,
+    CAUTION, reduce_slug_tests, SLUG_METHODS, retire_records, restore_records, record_history,
 )
 from .surfaces import (  # noqa: F401
     QUANTITIES, AUTO_GLOBAL_MAX, METHODS, zone_heads, unit_intervals, verticals, surface_points,

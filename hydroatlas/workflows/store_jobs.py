@@ -19,9 +19,41 @@ def init_store(location, *, crs, length_unit: str = "m", vertical_datum: str = "
 
 
 def import_data(store: Store, kind: str, path, *, input_crs=None,
-                progress: Callable[[int], None] | None = None) -> ImportReport:
+                progress: Callable[[int], None] | None = None, clear_empty: bool = False) -> ImportReport:
     """Validate and import one file (see :mod:`hydroatlas.store.importers`)."""
-    return import_file(store, kind, path, input_crs=input_crs, progress=progress)
+    return import_file(store, kind, path, input_crs=input_crs, progress=progress, clear_empty=clear_empty)
+
+
+def _record_table(kind: str) -> str:
+    from ..store.importers import KINDS, TABLE_OF
+
+    if kind not in KINDS:
+        raise ParameterError(f"unknown kind {kind!r}; expected one of {', '.join(KINDS)}")
+    return TABLE_OF.get(kind, kind)
+
+
+def retire_records(store: Store, kind: str, ids: list[str], *, reason: str) -> int:
+    """Take records out of every computation without deleting them; returns how many were retired.
+
+    Each id is the record's natural key, its parts joined by '/' (``W1``, ``W1/P2``,
+    ``W1/P2/slug@2024-05-01``). Rows that hang on a retired well, zone or spring
+    (its zones, tests, heads, discharge) leave the computations with it.
+    """
+    if not reason or not reason.strip():
+        raise ParameterError("a retirement needs a reason (--reason TEXT); it is kept with the record")
+    with store.transaction():
+        return store.set_retired(_record_table(kind), list(ids), reason=reason.strip())
+
+
+def restore_records(store: Store, kind: str, ids: list[str]) -> int:
+    """Bring retired records back into the computations; returns how many were restored."""
+    with store.transaction():
+        return store.set_retired(_record_table(kind), list(ids), reason=None)
+
+
+def record_history(store: Store, kind: str, ident: str) -> list[dict]:
+    """Every version of one record, oldest first (the last is the current one)."""
+    return store.record_versions(_record_table(kind), ident)
 
 
 def zone_assignment(store: Store) -> pd.DataFrame:
@@ -63,10 +95,15 @@ def well_profiles(store: Store, *, k_unit: str = "m/d", unit: str | None = None,
 def check_store(store: Store) -> list[dict]:
     """Data-quality findings (straddles, gaps, orphans, outliers)."""
     asg = zone_assignment(store)
-    return quality.find_issues(
+    findings = quality.find_issues(
         wells=store.read("wells"), zones=store.read("zones"), picks=store.read("picks"),
         units=store.read("units"), ktests=store.read("ktests", ["well_id", "zone_id", "test_id", "k_ms"]),
         heads=store.read("heads", ["well_id", "zone_id", "head"]), assignment=asg)
+    for r in store.retired().itertuples():
+        findings.append({"kind": "retired", "severity": "info", "well_id": None, "zone_id": None, "unit": None,
+                         "message": f"{r.table} {r.record} is retired since {r.retired_at} ({r.reason}); "
+                                    "left out of every computation, 'hydroatlas restore' brings it back"})
+    return findings
 
 
 CAUTION = ("Screening-level estimate for planning and model set-up, not a substitute for site-specific "

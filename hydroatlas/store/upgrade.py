@@ -1,0 +1,95 @@
+"""Schema versions: refuse a store of another version, and migrate older ones in one transaction.
+
+Version 1: the first release. Version 2 adds retirement (``retired_at``,
+``retired_reason`` on every record table), the record history table with its
+triggers, and K-test keys that do not depend on how the value was written
+(``method@date`` instead of ``date|method|k|unit`` when the file gave no test_id).
+"""
+
+from __future__ import annotations
+
+import re
+import sqlite3
+from pathlib import Path
+
+from ..errors import StoreError
+from .schema import HISTORY_TABLE, SCHEMA_VERSION, TABLES, UPGRADABLE_VERSIONS
+
+SETTINGS_TABLE = "hydroatlas_settings"
+
+
+def read_version(conn: sqlite3.Connection) -> str:
+    row = conn.execute(f"SELECT value FROM {SETTINGS_TABLE} WHERE key = 'schema_version'").fetchone()
+    return row[0] if row else "1"
+
+
+def version_problem(version: str, location) -> StoreError | None:
+    """The error to raise for a store of ``version``, or None when this release reads it."""
+    if version == SCHEMA_VERSION:
+        return None
+    if version in UPGRADABLE_VERSIONS:
+        return StoreError(f"{location} has store schema version {version}, older than this hydroatlas "
+                          f"(version {SCHEMA_VERSION}); migrate it with 'hydroatlas upgrade {location}' "
+                          "(one transaction; keep a copy first)")
+    return StoreError(f"{location} has store schema version {version}, which this hydroatlas (schema "
+                      f"{SCHEMA_VERSION}) does not know; it was probably made by a newer release: upgrade "
+                      "hydroatlas rather than write to it with this one")
+
+
+_OLD_KTEST_ID = re.compile(r"^(\d{4}-\d{2}-\d{2})\|([a-z_]+)\|.*\|.*$")
+
+
+def upgrade_geopackage(path) -> tuple[str, str]:
+    """Migrate the GeoPackage store at ``path`` to :data:`SCHEMA_VERSION`; returns (old, new) versions."""
+    from .geopackage import GeoPackageStore, _now, history_triggers, q, table_ddl
+
+    path = Path(path)
+    conn = GeoPackageStore._connect(path)
+    try:
+        version = read_version(conn)
+        if version == SCHEMA_VERSION:
+            return version, version
+        if version not in UPGRADABLE_VERSIONS:
+            raise version_problem(version, path)
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            for spec in TABLES.values():
+                if spec.name == HISTORY_TABLE:
+                    for stmt in table_ddl(spec):
+                        conn.execute(stmt)
+                    conn.execute("INSERT INTO gpkg_contents (table_name, data_type, identifier, description, "
+                                 "last_change) VALUES (?, 'attributes', ?, ?, ?)",
+                                 (spec.name, spec.name, spec.description, _now()))
+                    continue
+                if not spec.provenance:
+                    continue
+                present = {r[1] for r in conn.execute(f"PRAGMA table_info({q(spec.name)})")}
+                for col in spec.lifecycle:
+                    if col not in present:
+                        conn.execute(f"ALTER TABLE {q(spec.name)} ADD COLUMN {q(col)} TEXT")
+            for spec in TABLES.values():
+                for stmt in history_triggers(spec):
+                    conn.execute(stmt)
+            # K tests keyed by their written value get the key of version 2, where it is unique in the zone;
+            # the trigger keeps the old key in the history
+            rows = conn.execute("SELECT fid, well_id, zone_id, test_id FROM ktests").fetchall()
+            taken = {(w, z, t) for _, w, z, t in rows}
+            for fid, w, z, t in rows:
+                m = _OLD_KTEST_ID.match(t or "")
+                if not m:
+                    continue
+                new = f"{m.group(2)}@{m.group(1)}"
+                if (w, z, new) in taken:
+                    continue
+                conn.execute("UPDATE ktests SET test_id = ? WHERE fid = ?", (new, fid))
+                taken.discard((w, z, t))
+                taken.add((w, z, new))
+            conn.execute(f"INSERT OR REPLACE INTO {SETTINGS_TABLE} VALUES ('schema_version', ?)", (SCHEMA_VERSION,))
+            conn.execute(f"INSERT OR REPLACE INTO {SETTINGS_TABLE} VALUES ('upgraded_at', ?)", (_now(),))
+            conn.execute("COMMIT")
+        except BaseException:
+            conn.execute("ROLLBACK")
+            raise
+        return version, SCHEMA_VERSION
+    finally:
+        conn.close()
