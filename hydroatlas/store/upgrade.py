@@ -82,6 +82,9 @@ def upgrade_geopackage(path) -> tuple[str, str]:
                 if (w, z, new) in taken:
                     continue
                 conn.execute("UPDATE ktests SET test_id = ? WHERE fid = ?", (new, fid))
+                # the trigger filed the old version under the old key: file it under the record's key now
+                conn.execute(f"UPDATE {HISTORY_TABLE} SET record_key = json_array(?, ?, ?) "
+                             f"WHERE fid = (SELECT max(fid) FROM {HISTORY_TABLE})", (w, z, new))
                 taken.discard((w, z, t))
                 taken.add((w, z, new))
             conn.execute(f"INSERT OR REPLACE INTO {SETTINGS_TABLE} VALUES ('schema_version', ?)", (SCHEMA_VERSION,))
