@@ -12,6 +12,8 @@ $(BIN)/python:
 
 $(STAMP): $(BIN)/python pyproject.toml
 	$(BIN)/python -m pip install --quiet -e '.[test]'
+	# GDAL's GeoPackage validator (pure Python; its declared dependency on the GDAL bindings is not needed)
+	$(BIN)/python -m pip install --quiet --no-deps 'gdal-utils==3.13.3.0'
 	touch $(STAMP)
 
 demo: $(STAMP)

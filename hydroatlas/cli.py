@@ -16,7 +16,8 @@ import click
 import pandas as pd
 
 from . import workflows
-from .errors import HydroatlasError
+from .errors import HydroatlasError, ParameterError
+from .heads import TimeWindow, parse_instant
 from .quantities import RATE_UNITS, known_units
 from .stats import PER_CHOICES
 from .store import open_store
@@ -37,6 +38,138 @@ k_unit_option = click.option("--k-unit", type=click.Choice(known_units("hydrauli
 surfaces_option = click.option("--surfaces", default=None, type=click.Path(file_okay=False),
                                help="Folder of the surfaces and layers.gpkg made by 'surface' and 'paths' "
                                     "(default: the output folder).")
+
+
+# -- option values: declared constraints, refused with exit code 2 and one line that names the option ------------
+class _OptionError(click.BadParameter):
+    """A refused option value: exit code 2 and one line, "hydroatlas: error: --cell must be ...", no usage text."""
+
+    def format_message(self) -> str:
+        return self.message
+
+    def show(self, file=None) -> None:
+        click.echo(f"hydroatlas: error: {self.format_message()}", file=file, err=True)
+
+
+def _option_label(param) -> str:
+    return "/".join(param.opts) if param is not None and param.opts else "option"
+
+
+class Finite(click.ParamType):
+    """A finite number (or whole number) within declared bounds.
+
+    Declared once per kind of value and reused; a refusal is one line that names
+    the option, e.g. "--cell must be > 0 and finite (got inf)".
+    """
+
+    def __init__(self, *, min: float | None = None, max: float | None = None, min_open: bool = False,
+                 max_open: bool = False, integer: bool = False):
+        self.min, self.max, self.min_open, self.max_open, self.integer = min, max, min_open, max_open, integer
+        self.name = "integer" if integer else "float"  # the metavar in --help, as click's own types
+
+    def describe(self) -> str:
+        """The constraint in words: '> 0 and finite', '> 0 and <= 1', 'a whole number >= 1', 'a finite number'."""
+        low = None if self.min is None else f"{'>' if self.min_open else '>='} {self.min:g}"
+        high = None if self.max is None else f"{'<' if self.max_open else '<='} {self.max:g}"
+        if self.integer:
+            return " ".join(["a whole number", " and ".join(b for b in (low, high) if b)]).strip()
+        if low and high:
+            return f"{low} and {high}"
+        if low or high:
+            return f"{low or high} and finite"
+        return "a finite number"
+
+    def check(self, value, label: str):
+        """``value`` (text or number) as a checked float or int; _OptionError naming ``label`` otherwise."""
+        try:
+            x = float(value)
+            if self.integer:  # "5" and 5.0 are whole, "5.0" from the command line and 2.5 are not
+                x = int(value) if isinstance(value, str) else (int(x) if x.is_integer() else None)
+        except (TypeError, ValueError, OverflowError):
+            x = None
+        ok = x is not None and math.isfinite(x)
+        if ok and self.min is not None:
+            ok = x > self.min if self.min_open else x >= self.min
+        if ok and self.max is not None:
+            ok = x < self.max if self.max_open else x <= self.max
+        if not ok:
+            shown = value.strip() if isinstance(value, str) else value
+            raise _OptionError(f"{label} must be {self.describe()} (got {shown})")
+        return x
+
+    def convert(self, value, param, ctx):
+        try:
+            return self.check(value, _option_label(param))
+        except _OptionError as exc:
+            exc.ctx, exc.param = ctx, param
+            raise
+
+
+FINITE = Finite()
+POSITIVE = Finite(min=0, min_open=True)
+NON_NEGATIVE = Finite(min=0)
+COUNT = Finite(min=1, integer=True)
+FRACTION = Finite(min=0, max=1, min_open=True)  # (0, 1]: effective porosity
+OPEN_FRACTION = Finite(min=0, max=1, min_open=True, max_open=True)  # (0, 1): storativity
+ANGLE = Finite(min=-360, max=360)
+
+
+class _Pair(click.ParamType):
+    """Two comma-separated numbers, each checked by a :class:`Finite`, e.g. X,Y or ROWS,COLS."""
+
+    def __init__(self, what: str, each: Finite, kind: str):
+        self.name, self.each, self.kind = what, each, kind
+
+    def convert(self, value, param, ctx):
+        if isinstance(value, tuple):
+            return value
+        parts = str(value).split(",")
+        label = _option_label(param)
+        try:
+            if len(parts) != 2:
+                raise _OptionError("")
+            return tuple(self.each.check(p, label) for p in parts)
+        except _OptionError:
+            raise _OptionError(f"{label} must be {self.name}, {self.kind} (got {value})", ctx=ctx,
+                               param=param) from None
+
+
+class _Checked(click.ParamType):
+    """Text checked by ``parse([text])`` while the command line is read (before the command says anything), kept
+    as text for the command to parse."""
+
+    name = "text"
+
+    def __init__(self, parse):
+        self.parse = parse
+
+    def convert(self, value, param, ctx):
+        try:
+            self.parse([value])
+        except _OptionError as exc:
+            exc.ctx, exc.param = ctx, param
+            raise
+        return value
+
+
+def _window_value(ctx, param, value):
+    """Click callback: an ISO 8601 interval FROM/TO, each end at least YYYY-MM-DD."""
+    if value is not None:
+        try:
+            TimeWindow.parse(value, name=_option_label(param))
+        except ParameterError as exc:
+            raise _OptionError(str(exc), ctx=ctx, param=param) from None
+    return value
+
+
+def _date_value(ctx, param, value):
+    """Click callback: an ISO 8601 date or date-time, at least YYYY-MM-DD."""
+    if value is not None:
+        try:
+            parse_instant(value, name=_option_label(param))
+        except ParameterError as exc:
+            raise _OptionError(str(exc), ctx=ctx, param=param) from None
+    return value
 
 
 class _Group(click.Group):
@@ -223,8 +356,10 @@ def stats(store, unit, k_unit, per, fmt, exclude_straddles, exclude_poor, by_wel
 
 @main.command()
 @click.argument("store")
-@click.option("--window", default=None, help="ISO 8601 interval FROM/TO: median head of each zone inside it.")
-@click.option("--at", default=None, help="Date: the reading nearest to it, per zone (instead of --window).")
+@click.option("--window", default=None, callback=_window_value,
+              help="ISO 8601 interval FROM/TO: median head of each zone inside it.")
+@click.option("--at", default=None, callback=_date_value,
+              help="Date: the reading nearest to it, per zone (instead of --window).")
 @click.option("--profiles", is_flag=True, help="Print the head profile of each multi-zone well instead of pairs.")
 @click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
 def verticals(store, window, at, profiles, fmt):
@@ -251,20 +386,21 @@ def verticals(store, window, at, profiles, fmt):
               help="head, logk (log10 K in m/d) or dhead (head minus the head of the unit below).")
 @click.option("--method", type=click.Choice(workflows.METHODS), default="kriging", show_default=True,
               help="kriging (ordinary), uk (universal, linear drift) or idw.")
-@click.option("--window", default=None, help="ISO 8601 interval FROM/TO for heads (median per zone).")
-@click.option("--at", default=None, help="Date: the head reading nearest to it, per zone.")
-@click.option("--cell", type=float, default=None, help="Cell size in CRS units (default: 1/200 of the extent).")
+@click.option("--window", default=None, callback=_window_value,
+              help="ISO 8601 interval FROM/TO for heads (median per zone).")
+@click.option("--at", default=None, callback=_date_value, help="Date: the head reading nearest to it, per zone.")
+@click.option("--cell", type=POSITIVE, default=None, help="Cell size in CRS units (default: 1/200 of the extent).")
 @click.option("--variogram", type=click.Choice(["spherical", "exponential", "gaussian"]), default="spherical",
               show_default=True, help="Variogram model, fitted by weighted least squares unless fixed.")
-@click.option("--nugget", type=float, default=None, help="Fix the nugget.")
-@click.option("--sill", type=float, default=None, help="Fix the total sill (with --range).")
-@click.option("--range", "range_", type=float, default=None, help="Fix the practical range (with --sill).")
-@click.option("--neighbors", type=int, default=None,
+@click.option("--nugget", type=NON_NEGATIVE, default=None, help="Fix the nugget.")
+@click.option("--sill", type=POSITIVE, default=None, help="Fix the total sill (with --range).")
+@click.option("--range", "range_", type=POSITIVE, default=None, help="Fix the practical range (with --sill).")
+@click.option("--neighbors", type=Finite(min=0, integer=True), default=None,
               help="Nearest points per cell; 0 = all (one global system). Default: all up to 400 points, else 16.")
 @click.option("--lower-unit", default=None, help="For dhead: the unit whose head is subtracted (default: next below).")
-@click.option("--buffer", type=float, default=None, help="Mask distance around the data when no domain polygon.")
+@click.option("--buffer", type=POSITIVE, default=None, help="Mask distance around the data when no domain polygon.")
 @click.option("--fallback-idw", is_flag=True, help="Use IDW when no variogram can be fitted (all values equal).")
-@click.option("--max-cells", type=int, default=None, help="Refuse grids larger than this (default 50,000,000).")
+@click.option("--max-cells", type=COUNT, default=None, help="Refuse grids larger than this (default 50,000,000).")
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False), help="Output folder.")
 def surface(store, unit, quantity, method, window, at, cell, variogram, nugget, sill, range_, neighbors,
             lower_unit, buffer, fallback_idw, max_cells, out):
@@ -302,8 +438,8 @@ def surface(store, unit, quantity, method, window, at, cell, variogram, nugget, 
 @click.argument("store")
 @click.option("--unit", required=True, help="Unit code.")
 @click.option("--wells", required=True, help="Three well ids, comma separated.")
-@click.option("--window", default=None, help="ISO 8601 interval FROM/TO for heads.")
-@click.option("--at", default=None, help="Date: the reading nearest to it.")
+@click.option("--window", default=None, callback=_window_value, help="ISO 8601 interval FROM/TO for heads.")
+@click.option("--at", default=None, callback=_date_value, help="Date: the reading nearest to it.")
 @click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
 def threepoint(store, unit, wells, window, at, fmt):
     """Hydraulic gradient and flow direction from the heads of three wells (plane through three points).
@@ -321,17 +457,17 @@ def threepoint(store, unit, wells, window, at, fmt):
 @main.command()
 @click.argument("store")
 @click.option("--unit", required=True, help="Unit code (its head surface must exist).")
-@click.option("--porosity", type=float, default=None,
+@click.option("--porosity", type=FRACTION, default=None,
               help=f"Effective porosity n_e, in (0, 1] (default {DEFAULT_POROSITY}, with a warning: give the "
                    "value for your rock).")
 @click.option("--backward", is_flag=True, help="Track backward from the springs and outline contributing areas.")
 @click.option("--k-source", type=click.Choice(["mean", "surface"]), default="mean", show_default=True,
               help="K from the unit's geometric mean or from its log-K surface.")
 @surfaces_option
-@click.option("--seed-spacing", type=float, default=None, help="Spacing of seeds in recharge areas (CRS units).")
-@click.option("--capture-radius", type=float, default=None, help="Particles end within this of a spring or "
+@click.option("--seed-spacing", type=POSITIVE, default=None, help="Spacing of seeds in recharge areas (CRS units).")
+@click.option("--capture-radius", type=POSITIVE, default=None, help="Particles end within this of a spring or "
               "pumping well (default: 2 cells).")
-@click.option("--max-years", type=float, default=1000.0, show_default=True, help="Longest travel time tracked.")
+@click.option("--max-years", type=POSITIVE, default=1000.0, show_default=True, help="Longest travel time tracked.")
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False), help="Output folder.")
 def paths(store, unit, porosity, backward, k_source, surfaces, seed_spacing, capture_radius, max_years, out):
     """Likely pathways from recharge areas to springs, pumping wells or the domain edge.
@@ -369,13 +505,13 @@ def paths(store, unit, porosity, backward, k_source, surfaces, seed_spacing, cap
 def _parse_rates(values):
     out = {}
     for item in values:
-        if "=" not in item:
-            raise click.BadParameter(f"{item!r} is not WELL=Q", param_hint="--rate")
-        wid, q = item.split("=", 1)
+        wid, sep, q = item.partition("=")
         try:
-            out[wid.strip()] = float(q)
-        except ValueError:
-            raise click.BadParameter(f"{item!r}: {q!r} is not a number", param_hint="--rate") from None
+            if not (sep and wid.strip()):
+                raise ValueError
+            out[wid.strip()] = FINITE.check(q, "--rate")
+        except (ValueError, _OptionError):
+            raise _OptionError(f"--rate must be WELL=Q with Q a finite number (got {item})") from None
     return out
 
 
@@ -384,27 +520,32 @@ def _parse_new_wells(values):
     for n, item in enumerate(values, start=1):
         parts = item.split(",")
         try:
-            x, y, q = (float(p) for p in parts[-3:])
-        except ValueError:
-            raise click.BadParameter(f"{item!r} is not [NAME,]X,Y,Q", param_hint="--new-well") from None
-        if len(parts) not in (3, 4):
-            raise click.BadParameter(f"{item!r} is not [NAME,]X,Y,Q", param_hint="--new-well")
-        out.append((parts[0] if len(parts) == 4 else f"proposed-{n}", x, y, q))
+            if len(parts) not in (3, 4):
+                raise ValueError
+            x, y, q = (FINITE.check(p, "--new-well") for p in parts[-3:])
+        except (ValueError, _OptionError):
+            raise _OptionError(f"--new-well must be [NAME,]X,Y,Q with X, Y, Q finite numbers "
+                               f"(got {item})") from None
+        name = parts[0].strip() if len(parts) == 4 else ""
+        out.append((name or f"proposed-{n}", x, y, q))
     return out
 
 
 @main.command()
 @click.argument("store")
 @click.option("--unit", required=True, help="Unit code (its head surface must exist).")
-@click.option("--days", type=float, required=True, help="Pumping duration in days.")
-@click.option("--storativity", "-S", type=float, default=None,
-              help=f"Storage coefficient S (> 0; default {DEFAULT_STORATIVITY}, a confined aquifer, with a warning).")
-@click.option("--rate", "rates", multiple=True, help="WELL=Q: rate of a stored well (replaces its stored rate).")
-@click.option("--new-well", "new_wells", multiple=True, help="[NAME,]X,Y,Q: a proposed well (store CRS).")
+@click.option("--days", type=POSITIVE, required=True, help="Pumping duration in days.")
+@click.option("--storativity", "-S", type=OPEN_FRACTION, default=None,
+              help=f"Storage coefficient S, in (0, 1) (default {DEFAULT_STORATIVITY}, a confined aquifer, "
+                   "with a warning).")
+@click.option("--rate", "rates", multiple=True, type=_Checked(lambda v: _parse_rates(v)),
+              help="WELL=Q: rate of a stored well (replaces its stored rate).")
+@click.option("--new-well", "new_wells", multiple=True, type=_Checked(lambda v: _parse_new_wells(v)),
+              help="[NAME,]X,Y,Q: a proposed well (store CRS).")
 @click.option("--rate-unit", type=click.Choice(list(RATE_UNITS)), default="m3/d", show_default=True)
-@click.option("--transmissivity", "-T", type=float, default=None,
+@click.option("--transmissivity", "-T", type=POSITIVE, default=None,
               help="T in m2/d (default: the unit's geometric-mean K times its mean thickness).")
-@click.option("--threshold", type=float, default=0.5, show_default=True,
+@click.option("--threshold", type=NON_NEGATIVE, default=0.5, show_default=True,
               help="List springs and monitoring zones losing more head than this (store length unit).")
 @surfaces_option
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False), help="Output folder.")
@@ -501,32 +642,22 @@ def figures(store, k_unit, surfaces, out):
     click.echo(f"{len(files)} files in {out}")
 
 
-def _pair(text, what, cast=float):
-    if text is None:
-        return None
-    parts = text.split(",")
-    try:
-        if len(parts) != 2:
-            raise ValueError
-        return tuple(cast(p) for p in parts)
-    except ValueError:
-        raise click.BadParameter(f"{text!r} is not {what}") from None
-
-
 @main.command()
 @click.argument("store")
-@click.option("--cell", type=float, required=True, help="Cell size in CRS units.")
-@click.option("--origin", default=None, help="X,Y of the lower-left corner (needed with --rotation).")
-@click.option("--shape", default=None, help="ROWS,COLS (needed with --origin).")
-@click.option("--rotation", type=float, default=0.0, show_default=True,
+@click.option("--cell", type=POSITIVE, required=True, help="Cell size in CRS units.")
+@click.option("--origin", type=_Pair("X,Y", FINITE, "two finite numbers"), default=None,
+              help="X,Y of the lower-left corner (needed with --rotation).")
+@click.option("--shape", type=_Pair("ROWS,COLS", COUNT, "two whole numbers >= 1"), default=None,
+              help="ROWS,COLS (needed with --origin).")
+@click.option("--rotation", type=ANGLE, default=0.0, show_default=True,
               help="Degrees counter-clockwise about the origin.")
 @click.option("--layers", default=None, help="Unit codes, top first, comma separated (default: all picked units).")
-@click.option("--kv-ratio", type=float, default=10.0, show_default=True, help="K_h / K_v of aquifer layers.")
+@click.option("--kv-ratio", type=POSITIVE, default=10.0, show_default=True, help="K_h / K_v of aquifer layers.")
 @click.option("--k-source", type=click.Choice(["mean", "surface"]), default="mean", show_default=True)
-@click.option("--min-thickness", type=float, default=1.0, show_default=True,
+@click.option("--min-thickness", type=POSITIVE, default=1.0, show_default=True,
               help="Smallest layer thickness (store length unit).")
 @surfaces_option
-@click.option("--max-cells", type=int, default=None, help="Refuse grids larger than this (default 20,000,000).")
+@click.option("--max-cells", type=COUNT, default=None, help="Refuse grids larger than this (default 20,000,000).")
 @click.option("--out", default="model.nc", show_default=True, type=click.Path(dir_okay=False))
 def grid(store, cell, origin, shape, rotation, layers, kv_ratio, k_source, min_thickness, surfaces, max_cells, out):
     """Model-ready grid: one layer per unit with top, bottom, K_h, K_v and starting heads.
@@ -542,8 +673,7 @@ def grid(store, cell, origin, shape, rotation, layers, kv_ratio, k_source, min_t
     Example: hydroatlas grid district.gpkg --cell 250 --layers CAP,ULS,SHL,LCL --out model/district.nc
     """
     with open_store(store) as s:
-        res = workflows.model_grid(s, cell=cell, out=out, origin=_pair(origin, "X,Y"),
-                                   shape=_pair(shape, "ROWS,COLS", int), rotation=rotation,
+        res = workflows.model_grid(s, cell=cell, out=out, origin=origin, shape=shape, rotation=rotation,
                                    layers=[c.strip() for c in layers.split(",")] if layers else None,
                                    kv_ratio=kv_ratio, k_source=k_source, min_thickness=min_thickness,
                                    surfaces=surfaces, max_cells=max_cells)

@@ -7,6 +7,20 @@ import numpy as np
 from .errors import ParameterError
 
 
+def _number(name: str, value, *, minimum: float | None = 0.0, strict: bool = True) -> float:
+    """``value`` as a finite float, > ``minimum`` (>= with ``strict=False``; no bound when None)."""
+    try:
+        x = float(value)
+    except (TypeError, ValueError):
+        raise ParameterError(f"{name} must be a number; got {value!r}") from None
+    if minimum is None:
+        if not np.isfinite(x):
+            raise ParameterError(f"{name} must be a finite number; got {value}")
+    elif not (np.isfinite(x) and (x > minimum if strict else x >= minimum)):
+        raise ParameterError(f"{name} must be a finite number {'>' if strict else '>='} {minimum:g}; got {value}")
+    return x
+
+
 def azimuth_deg(east, north):
     """Azimuth in degrees clockwise from grid north of the vector (east, north), in [0, 360)."""
     return np.mod(np.degrees(np.arctan2(east, north)), 360.0)
@@ -55,7 +69,8 @@ def grid_gradient(head, cell: float, *, vertical_per_horizontal: float = 1.0):
     -------
     magnitude, azimuth : arrays of the grid shape (azimuth of -grad h, degrees clockwise from north)
     """
-    h = np.asarray(head, float) * vertical_per_horizontal
+    cell = _number("cell", cell)
+    h = np.asarray(head, float) * _number("vertical_per_horizontal", vertical_per_horizontal)
     if h.ndim != 2:
         raise ParameterError(f"head grid must be 2-D; got shape {h.shape}")
     d_drow, d_dcol = _nan_gradient(h)
@@ -118,7 +133,9 @@ class VelocityGrid:
     """
 
     def __init__(self, x0: float, y0: float, cell: float, vx, vy):
-        self.x0, self.y0, self.cell = float(x0), float(y0), float(cell)
+        self.x0 = _number("x0", x0, minimum=None)
+        self.y0 = _number("y0", y0, minimum=None)
+        self.cell = _number("cell", cell)
         self.vx = np.asarray(vx, float)
         self.vy = np.asarray(vy, float)
         if self.vx.shape != self.vy.shape or self.vx.ndim != 2:
@@ -137,13 +154,17 @@ class VelocityGrid:
         ``k_per_day_to_crs`` turns it into CRS units per day; heads are turned into
         CRS units by ``vertical_per_horizontal``.
         """
-        if not (0 < porosity <= 1):
+        if not (isinstance(porosity, (int, float, np.number)) and 0 < porosity <= 1):
             raise ParameterError(f"effective porosity must be in (0, 1]; got {porosity}")
-        h = np.asarray(head, float) * vertical_per_horizontal
+        cell = _number("cell", cell)
+        h = np.asarray(head, float) * _number("vertical_per_horizontal", vertical_per_horizontal)
         d_drow, d_dcol = _nan_gradient(h)
         gx = d_dcol / cell
         gy = -d_drow / cell
-        kk = np.asarray(k, float) * k_per_day_to_crs
+        kk = np.asarray(k, float)
+        if np.any(np.isinf(kk) | (kk <= 0)):  # NaN is allowed: no field there
+            raise ParameterError("hydraulic conductivity k must be finite and > 0 (NaN where there is no field)")
+        kk = kk * _number("k_per_day_to_crs", k_per_day_to_crs)
         return cls(x0, y0, cell, -kk * gx / porosity, -kk * gy / porosity)
 
     def __call__(self, xy) -> tuple[np.ndarray, np.ndarray]:
@@ -214,7 +235,7 @@ def track(seeds, velocity, *, backward: bool = False, t_max: float = 365_250.0, 
     backward : bool
         Track against the flow (contributing areas).
     t_max : float
-        Maximum travel time (days).
+        Maximum travel time (days, finite and > 0).
     sinks : array (k, 2), optional
         Springs or wells; a particle closer than ``sink_radius`` (scalar or (k,)) ends there.
     max_step, tol : float
@@ -230,18 +251,31 @@ def track(seeds, velocity, *, backward: bool = False, t_max: float = 365_250.0, 
     p = np.array(seeds, dtype=float, copy=True)
     if p.ndim != 2 or p.shape[1] != 2:
         raise ParameterError(f"seeds must have shape (n, 2); got {p.shape}")
+    if not np.isfinite(p).all():
+        raise ParameterError("seeds hold NaN or infinite coordinates")
     n = len(p)
+    t_max = _number("t_max (days)", t_max)
     cell = getattr(velocity, "cell", None)
     if max_step is None:
         if cell is None:
             raise ParameterError("give max_step for a velocity field without a cell size")
         max_step = 0.5 * cell
-    tol = tol if tol is not None else 0.01 * max_step
-    min_speed = 1e-6 * max_step if min_speed is None else min_speed
-    record_spacing = record_spacing or max_step
+    max_step = _number("max_step", max_step)
+    tol = _number("tol", tol) if tol is not None else 0.01 * max_step
+    min_speed = 1e-6 * max_step if min_speed is None else _number("min_speed", min_speed, strict=False)
+    record_spacing = max_step if record_spacing is None else _number("record_spacing", record_spacing)
+    if isinstance(max_steps, bool) or not isinstance(max_steps, (int, np.integer)) or max_steps < 1:
+        raise ParameterError(f"max_steps must be a whole number >= 1; got {max_steps!r}")
     sign = -1.0 if backward else 1.0
-    sinks = np.zeros((0, 2)) if sinks is None else np.atleast_2d(np.asarray(sinks, float))
-    radius = np.broadcast_to(np.asarray(0.0 if sink_radius is None else sink_radius, float), (len(sinks),))
+    sinks = np.zeros((0, 2)) if sinks is None or np.size(sinks) == 0 else np.atleast_2d(np.asarray(sinks, float))
+    if sinks.ndim != 2 or sinks.shape[1] != 2 or not np.isfinite(sinks).all():
+        raise ParameterError(f"sinks must be finite coordinates of shape (k, 2); got shape {sinks.shape}")
+    try:
+        radius = np.broadcast_to(np.asarray(0.0 if sink_radius is None else sink_radius, float), (len(sinks),))
+    except ValueError:
+        raise ParameterError(f"sink_radius must be one number or one per sink ({len(sinks)})") from None
+    if not (np.isfinite(radius).all() and (radius >= 0).all()):
+        raise ParameterError(f"sink_radius must be finite and >= 0; got {sink_radius}")
 
     def vel(xy):
         vx, vy = velocity(xy)

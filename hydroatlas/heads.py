@@ -6,12 +6,52 @@ length unit; K in m/s on input.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
 from .errors import InsufficientDataError, ParameterError
+
+
+# A date or date-time as ISO 8601 extended format, at least YYYY-MM-DD: a bare year or year-month is refused
+# (pandas would read '2024' as 2024-01-01 and silently turn a year into one day).
+_ISO_INSTANT = re.compile(r"\d{4}-\d{2}-\d{2}"
+                          r"(?P<time>[T ]\d{2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?(?:Z|[+-]\d{2}(?::?\d{2})?)?)?")
+_DATE_HINT = "give a date YYYY-MM-DD or a date-time YYYY-MM-DDThh:mm[:ss][+hh:mm]"
+
+
+def parse_instant(text: str, *, name: str = "date") -> tuple[pd.Timestamp, bool]:
+    """An ISO 8601 date or date-time (at least YYYY-MM-DD) as a naive UTC timestamp.
+
+    Parameters
+    ----------
+    text : str
+        e.g. '2024-03-01', '2024-03-01T10:00', '2024-03-01T10:00:00+02:00'.
+    name : str
+        What the text is, for the error message (e.g. '--at').
+
+    Returns
+    -------
+    (Timestamp, bool)
+        The instant (offsets converted to UTC, then dropped) and whether a time of day was given.
+
+    Raises
+    ------
+    ParameterError
+        For anything else, a bare year or year-month included.
+    """
+    match = _ISO_INSTANT.fullmatch(text.strip()) if isinstance(text, str) else None
+    if match is None:
+        raise ParameterError(f"{name} {text!r} is not an ISO 8601 date; {_DATE_HINT}")
+    try:
+        stamp = pd.to_datetime(text.strip().replace(",", "."), format="ISO8601")
+    except (ValueError, TypeError):
+        raise ParameterError(f"{name} {text!r} is not a valid date; {_DATE_HINT}") from None
+    if stamp.tzinfo is not None:
+        stamp = stamp.tz_convert("UTC").tz_localize(None)
+    return stamp, match.group("time") is not None
 
 
 @dataclass(frozen=True)
@@ -23,24 +63,21 @@ class TimeWindow:
     text: str
 
     @classmethod
-    def parse(cls, text: str) -> "TimeWindow":
-        """Parse an ISO 8601 interval 'FROM/TO', e.g. '2024-03-01/2024-03-31'."""
+    def parse(cls, text: str, *, name: str = "window") -> "TimeWindow":
+        """Parse an ISO 8601 interval 'FROM/TO', e.g. '2024-03-01/2024-03-31'; each end at least YYYY-MM-DD.
+
+        ``name`` says what the text is in error messages (e.g. '--window').
+        """
         if not isinstance(text, str) or text.count("/") != 1:
-            raise ParameterError(f"window {text!r} is not an ISO 8601 interval FROM/TO (e.g. 2024-03-01/2024-03-31)")
+            raise ParameterError(f"{name} {text!r} is not an ISO 8601 interval FROM/TO (e.g. 2024-03-01/2024-03-31)")
         a, b = (s.strip() for s in text.split("/"))
-        try:
-            start = pd.to_datetime(a, format="ISO8601")
-            end = pd.to_datetime(b, format="ISO8601")
-        except (ValueError, TypeError):
-            raise ParameterError(f"window {text!r}: cannot read {a!r} or {b!r} as ISO 8601 dates") from None
-        if start.tzinfo is not None:
-            start = start.tz_convert("UTC").tz_localize(None)
-        if end.tzinfo is not None:
-            end = end.tz_convert("UTC").tz_localize(None)
-        if len(b) <= 10:  # a date: include the whole day
+        where = f"{name} {text!r}:"
+        start, _ = parse_instant(a, name=f"{where} start")
+        end, end_has_time = parse_instant(b, name=f"{where} end")
+        if not end_has_time:  # a date: include the whole day
             end = end + pd.Timedelta(days=1) - pd.Timedelta(seconds=1)
         if end < start:
-            raise ParameterError(f"window {text!r} ends before it starts")
+            raise ParameterError(f"{name} {text!r} ends before it starts")
         return cls(start, end, text)
 
 
@@ -62,10 +99,7 @@ def select_heads(heads: pd.DataFrame, *, window: TimeWindow | None = None, at: s
     h = heads[["well_id", "zone_id", "measured_at", "head"]].copy()
     h["t"] = pd.to_datetime(h["measured_at"], format="ISO8601")
     if at is not None:
-        try:
-            t0 = pd.to_datetime(at, format="ISO8601")
-        except (ValueError, TypeError):
-            raise ParameterError(f"date {at!r} is not an ISO 8601 date") from None
+        t0, _ = parse_instant(at, name="date")
         if h.empty:
             raise InsufficientDataError("there are no head readings")
         h["offset_days"] = (h["t"] - t0).abs() / pd.Timedelta(days=1)

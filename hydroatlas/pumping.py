@@ -80,6 +80,15 @@ def _finite(name: str, value) -> np.ndarray:
     return a
 
 
+def _storativity(value) -> np.ndarray:
+    """Storativity as a float array, every element finite, > 0 and <= 1 (it is a dimensionless fraction)."""
+    a = _positive("S", value)
+    bad = a > 1
+    if bad.any():
+        raise ParameterError(f"S must be <= 1 (storativity is a dimensionless fraction); got {_first_bad(a, bad)}")
+    return a
+
+
 def _scalar(name: str, a: np.ndarray) -> float:
     if a.ndim != 0:
         raise ParameterError(f"{name} must be a single number; got an array of shape {a.shape}")
@@ -126,7 +135,7 @@ def _theis_args(r, t, Q, T, S):
     t_ = _positive("t", t)
     Q_ = _finite("Q", Q)
     T_ = _positive("T", T)
-    S_ = _positive("S", S)
+    S_ = _storativity(S)
     scalar = all(np.ndim(a) == 0 for a in (r_, t_, Q_, T_, S_))
     u = r_ * r_ * S_ / (4.0 * T_ * t_)
     return u, Q_ / (4.0 * math.pi * T_), scalar
@@ -149,7 +158,7 @@ def theis_drawdown(r, t, *, Q, T, S):
     T : float or array_like
         Transmissivity, > 0 (length^2 / time, e.g. m2/d).
     S : float or array_like
-        Storativity (storage coefficient), > 0, dimensionless.
+        Storativity (storage coefficient), in (0, 1], dimensionless.
 
     Returns
     -------
@@ -160,7 +169,7 @@ def theis_drawdown(r, t, *, Q, T, S):
     Raises
     ------
     ParameterError
-        If r, t, T or S is not finite and > 0, or Q is not finite.
+        If r, t, T or S is not finite and > 0, S > 1, or Q is not finite.
     """
     u, coef, scalar = _theis_args(r, t, Q, T, S)
     return _out(coef * exp1(u), scalar)
@@ -186,7 +195,7 @@ def cooper_jacob_drawdown(r, t, *, Q, T, S):
     T : float or array_like
         Transmissivity, > 0 (length^2 / time).
     S : float or array_like
-        Storativity, > 0, dimensionless.
+        Storativity, in (0, 1], dimensionless.
 
     Returns
     -------
@@ -417,7 +426,7 @@ def _superpose_args(wells_xy, rates, t, T, S, r_min):
         raise ParameterError(f"rates must have shape ({k},) to match wells_xy; got {q.shape}")
     t_ = _scalar("t", _positive("t", t))
     T_ = _scalar("T", _positive("T", T))
-    S_ = _scalar("S", _positive("S", S))
+    S_ = _scalar("S", _storativity(S))
     if r_min is None:
         rm = np.full(k, DEFAULT_R_MIN)
     else:
@@ -455,7 +464,7 @@ def superpose_drawdown(xy, wells_xy, rates, t, *, T, S, r_min=None):
     T : float
         Transmissivity, > 0 (length^2 / time, e.g. m2/d).
     S : float
-        Storativity, > 0, dimensionless.
+        Storativity, in (0, 1], dimensionless.
     r_min : float or array_like (k,), optional
         Smallest distance used (length): a point closer than r_min to a well
         (the well itself included) gets the drawdown at r_min, the well-face
@@ -471,7 +480,7 @@ def superpose_drawdown(xy, wells_xy, rates, t, *, T, S, r_min=None):
     ------
     ParameterError
         On shapes that do not match, non-finite coordinates or rates, or t, T,
-        S, r_min that are not finite and > 0.
+        S, r_min that are not finite and > 0, or S > 1.
     """
     p = _finite("xy", xy)
     if p.ndim != 2 or p.shape[1] != 2:

@@ -25,11 +25,13 @@ def _finding(kind, severity, message, **where) -> dict:
     return row
 
 
-def find_issues(*, wells, zones, picks, units, ktests, heads, assignment) -> list[dict]:
-    """Findings about straddles, gaps, orphans and outliers.
+def find_issues(*, wells, zones, picks, units, ktests, heads, assignment,
+                length_unit: str | None = None) -> list[dict]:
+    """Findings about straddles, gaps, overlaps, orphans and outliers.
 
     Parameters are the store tables as DataFrames; ``assignment`` is the result
-    of :func:`hydroatlas.assign.assign_zones`; ``heads`` needs well_id, zone_id, head.
+    of :func:`hydroatlas.assign.assign_zones`; ``heads`` needs well_id, zone_id, head;
+    ``length_unit`` is the store's length unit, named in messages that give a length.
     """
     out: list[dict] = []
     asg = assignment
@@ -49,6 +51,7 @@ def find_issues(*, wells, zones, picks, units, ktests, heads, assignment) -> lis
         out.append(_finding("inferred_unit", "info", f"unit {r.unit} from picks inferred at neighbouring wells",
                             well_id=r.well_id, zone_id=r.zone_id, unit=r.unit))
     out += _pick_findings(wells, picks, units)
+    out += _zone_overlaps(zones, length_unit)
     with_picks = set(picks["well_id"])
     for w in wells.loc[~wells["well_id"].isin(with_picks), "well_id"]:
         out.append(_finding("well_without_picks", "warning",
@@ -99,6 +102,33 @@ def _pick_findings(wells, picks, units) -> list[dict]:
                                         f"{r.unit} lies below {prev.unit} but ranks above it in the unit list",
                                         well_id=well, unit=r.unit))
             prev = r
+    return out
+
+
+def _zone_overlaps(zones: pd.DataFrame, length_unit: str | None) -> list[dict]:
+    """One finding per pair of zones of one well whose depth intervals overlap by more than PICK_TOLERANCE.
+
+    A reading or test of either zone then samples water of both; usually a typing error in a depth.
+    """
+    out = []
+    if zones.empty:
+        return out
+    unit = f" {length_unit}" if length_unit else " (store length unit)"
+    z = zones[["well_id", "zone_id", "top_depth", "bottom_depth"]].sort_values(["well_id", "top_depth",
+                                                                                "bottom_depth", "zone_id"])
+    for well, g in z.groupby("well_id", sort=True):
+        rows = list(g.itertuples(index=False))
+        for i, a in enumerate(rows):
+            for b in rows[i + 1:]:
+                if b.top_depth >= a.bottom_depth - PICK_TOLERANCE:
+                    break  # sorted by top: no later zone reaches up into a
+                lap = min(a.bottom_depth, b.bottom_depth) - b.top_depth
+                if lap <= PICK_TOLERANCE:
+                    continue
+                out.append(_finding("zone_overlap", "warning",
+                                    f"zones {a.zone_id} (depth {a.top_depth:g}-{a.bottom_depth:g}) and {b.zone_id} "
+                                    f"(depth {b.top_depth:g}-{b.bottom_depth:g}) overlap by {lap:g}{unit}",
+                                    well_id=well, zone_id=a.zone_id, other_zone_id=b.zone_id, overlap=float(lap)))
     return out
 
 

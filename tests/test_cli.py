@@ -41,3 +41,25 @@ def test_console_script_runs(tmp_path):
     assert out.returncode == 0, out.stderr
     bad = subprocess.run([str(exe), "stats", str(tmp_path / "nope.gpkg")], capture_output=True, text=True)
     assert bad.returncode == 2 and "does not exist" in bad.stderr and bad.stdout == ""
+
+
+@pytest.mark.parametrize("command", ["verticals", "surface", "threepoint", "paths", "drawdown", "grid"])
+def test_help_of_commands_with_checked_options(runner, command):
+    res = cli(runner, command, "--help")
+    assert res.exit_code == 0 and "Usage:" in res.output
+
+
+def test_grid_help_names_the_pair_formats(runner):
+    res = cli(runner, "grid", "--help")
+    assert "--origin X,Y" in res.output and "--shape ROWS,COLS" in res.output and "--cell FLOAT" in res.output
+
+
+def test_bad_option_value_is_one_line_without_usage(runner, mini_store):
+    res = cli(runner, "surface", mini_store, "--unit", "TOP", "--cell", "-1")
+    assert res.exit_code == 2
+    assert res.output == "hydroatlas: error: --cell must be > 0 and finite (got -1)\n"
+    res = cli(runner, "--debug", "drawdown", mini_store, "--unit", "TOP", "--days", "1", "--rate", "W1=inf")
+    assert res.exit_code == 2
+    assert res.output == "hydroatlas: error: --rate must be WELL=Q with Q a finite number (got W1=inf)\n"
+    res = cli(runner, "surface", mini_store)  # click's own usage errors keep their usage hint
+    assert res.exit_code == 2 and "Usage:" in res.output and "--unit" in res.output

@@ -291,3 +291,35 @@ def test_a_drawing_failure_still_closes_the_figure(tmp_path, monkeypatch):
     with pytest.raises(OSError, match="disk full"):
         figures.cross_validation(tmp_path / "cv", [1.0, 2.0], [1.0, 2.0])
     assert plt.get_fignums() == []
+
+
+def test_ids_with_dollar_signs_are_drawn_as_typed(tmp_path):
+    """A "$" in a well, zone or unit code is text, not the start of a formula that matplotlib may refuse."""
+    well = r"W$\frac{$1"
+    zones = _zones().assign(zone_id=["Z$2", r"Z1$\sqrt{", "Z3"], well_id=well)
+    paths = figures.head_profile(tmp_path / "p", well, zones, _units(), _pairs().iloc[1:])
+    text = _check_files(paths, tmp_path / "p", (7.0, 6.0))
+    assert f"Head profile at well {well}" in text and r"Z1$\sqrt{" in text
+
+
+def test_a_failed_save_leaves_no_partial_file_and_keeps_the_old_one(tmp_path, monkeypatch):
+    import errno
+
+    from hydroatlas.errors import StoreError
+
+    stem = tmp_path / "cv"
+    figures.cross_validation(stem, [1.0, 2.0], [1.0, 2.5])
+    before = {p.name: p.read_bytes() for p in tmp_path.iterdir()}
+    real = plt.Figure.savefig
+
+    def half_then_full(fig, fname, **kw):
+        with open(fname, "wb") as fh:
+            fh.write(b"\x89PNG half")
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(plt.Figure, "savefig", half_then_full)
+    with pytest.raises(StoreError, match=f"cannot write cv.png in the output folder {tmp_path}: the disk is full"):
+        figures.cross_validation(stem, [1.0, 2.0], [3.0, 4.0])
+    monkeypatch.setattr(plt.Figure, "savefig", real)
+    assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == before  # no temporary file, old files kept
+    assert plt.get_fignums() == []

@@ -74,3 +74,37 @@ def test_leakage_in_feet():
     intervals = pd.DataFrame({"well_id": ["W"], "unit": ["AQT"], "top_elev": [60.0], "bottom_elev": [50.0]})
     out = vertical_differences(profiles, UNITS, {"AQT": 1e-9}, intervals, length_to_m=0.3048)
     assert out.iloc[0]["leakage_flux"] == pytest.approx(1e-9 * 86400 / 0.3048 * 20.0 / 10.0)
+
+
+@pytest.mark.parametrize("text", ["2024/2025", "2024-03/2024-04", "2024-03-01/2024", "2024/2024-03-31",
+                                  "20240301/20240331", "2024-03-01T25:00/2024-03-31", "2024-02-30/2024-03-01"])
+def test_window_needs_full_dates(text):
+    with pytest.raises(ParameterError, match="YYYY-MM-DD"):
+        TimeWindow.parse(text)
+
+
+@pytest.mark.parametrize("at", ["2024", "2024-05", "05/20/2024", "2024-05-20T"])
+def test_date_needs_year_month_day(at):
+    with pytest.raises(ParameterError, match="YYYY-MM-DD"):
+        select_heads(HEADS, at=at)
+
+
+def test_full_iso_8601_date_times():
+    w = TimeWindow.parse("2024-03-01T00:00:00Z/2024-03-10T12:00")
+    assert w.start == pd.Timestamp("2024-03-01") and w.end == pd.Timestamp("2024-03-10T12:00")  # not widened
+    w = TimeWindow.parse("2024-03-01T02:00+02:00/2024-03-31")
+    assert w.start == pd.Timestamp("2024-03-01T00:00") and w.end == pd.Timestamp("2024-03-31T23:59:59")
+    w = TimeWindow.parse("2024-03-01 00:00:00.5/2024-03-02T00:00:00,25")
+    assert w.end == pd.Timestamp("2024-03-02T00:00:00.25")
+    # an offset on the date asked for is converted to UTC like the window (no mixing of naive and aware times)
+    sel = select_heads(HEADS, at="2024-03-10T14:00:00+02:00").set_index("well_id")
+    assert sel.loc["A", "head"] == 11.0 and sel.loc["A", "offset_days"] == pytest.approx(0.0)
+
+
+def test_parse_instant_names_what_it_read():
+    from hydroatlas.heads import parse_instant
+
+    assert parse_instant("2024-03-01") == (pd.Timestamp("2024-03-01"), False)
+    assert parse_instant("2024-03-01T06:30") == (pd.Timestamp("2024-03-01T06:30"), True)
+    with pytest.raises(ParameterError, match=r"^--at '2024' is not an ISO 8601 date"):
+        parse_instant("2024", name="--at")

@@ -72,3 +72,46 @@ def test_orphan_zone_and_well(mini_store, tmp_path, runner):
     found = kinds(runner, mini_store)
     assert ("W1", "P4") in {(f["well_id"], f["zone_id"]) for f in found if f["kind"] == "zone_without_data"}
     assert "W5" in {f["well_id"] for f in found if f["kind"] == "well_without_zones"}
+
+
+def test_overlapping_zones_of_one_well(mini_store, runner):
+    """Mini: W2 has screens S1 at 35-45 and S2 at 41-51, overlapping by 4."""
+    found = [f for f in kinds(runner, mini_store) if f["kind"] == "zone_overlap"]
+    assert len(found) == 1
+    f = found[0]
+    assert (f["severity"], f["well_id"], f["zone_id"], f["other_zone_id"]) == ("warning", "W2", "S1", "S2")
+    assert f["overlap"] == 4.0
+    assert "S1 (depth 35-45)" in f["message"] and "S2 (depth 41-51)" in f["message"]
+    assert "overlap by 4" in f["message"]
+    res = cli(runner, "check", mini_store)
+    assert res.exit_code == 0
+    row = [line for line in res.output.splitlines() if line.lstrip().startswith("zone_overlap ")]
+    assert len(row) == 1 and "W2" in row[0] and "overlap by 4" in row[0]
+    assert "zone_overlap: 1" in res.output
+
+
+def test_nested_duplicate_and_touching_zones(mini_store, tmp_path, runner):
+    zones = [MINI["zones.csv"][0],
+             ["W1", "P5", 72, 75.5, "port", ""],     # inside P3 (70-80): overlap 3.5
+             ["W1", "P6", 70, 80, "port", ""],       # the same interval as P3: overlap 10, and 3.5 with P5
+             ["W3", "S2", 30, 40, "screen", ""],     # touches S1 (20-30) at 30: no overlap
+             ["W4", "S2", 25.005, 30, "screen", ""]]  # within the tolerance of S1 (15-25): ignored
+    assert cli(runner, "import", mini_store, "zones", write_csv(tmp_path / "z.csv", zones)).exit_code == 0
+    found = {(f["well_id"], f["zone_id"], f["other_zone_id"]): f["overlap"]
+             for f in kinds(runner, mini_store) if f["kind"] == "zone_overlap"}
+    assert found == {("W1", "P3", "P6"): 10.0, ("W1", "P3", "P5"): 3.5, ("W1", "P6", "P5"): 3.5,
+                     ("W2", "S1", "S2"): 4.0}
+
+
+def test_overlap_names_the_length_unit(mini_store):
+    from hydroatlas import quality, workflows
+    from hydroatlas.store import open_store
+
+    with open_store(mini_store) as s:
+        found = quality.find_issues(
+            wells=s.read("wells"), zones=s.read("zones"), picks=s.read("picks"), units=s.read("units"),
+            ktests=s.read("ktests", ["well_id", "zone_id", "test_id", "k_ms"]),
+            heads=s.read("heads", ["well_id", "zone_id", "head"]), assignment=workflows.zone_assignment(s),
+            length_unit="ft")
+    (f,) = [f for f in found if f["kind"] == "zone_overlap"]
+    assert f["message"].endswith("overlap by 4 ft")

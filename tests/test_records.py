@@ -317,3 +317,21 @@ def test_older_schema_asks_for_upgrade_and_upgrade_migrates(mini_store, runner):
     assert json.loads(res.output)[0]["test_id"] == "2024-05-01|slug|2.0|m/d"  # the old key kept
     assert cli(runner, "retire", mini_store, "wells", "W2", "--reason", "x").exit_code == 0
     assert "is current" in cli(runner, "upgrade", mini_store).output
+
+
+def test_check_finds_a_well_moved_in_a_gis(mini_store, runner):
+    """x, y feed the computations; a geometry moved by a GIS that no longer agrees is an error finding."""
+    import struct
+
+    with open_store(mini_store) as s:
+        path = s.location
+    conn = sqlite3.connect(path)
+    register_functions(conn)
+    blob = conn.execute("SELECT geom FROM wells WHERE well_id = 'W3'").fetchone()[0]
+    moved = blob[:8] + blob[8:13] + struct.pack("<2d", 610250.0, 4102000.0)  # point WKB: header 5 bytes, x, y
+    conn.execute("UPDATE wells SET geom = ? WHERE well_id = 'W3'", (moved,))
+    conn.commit()
+    conn.close()
+    found = [f for f in json.loads(cli(runner, "check", mini_store, "--json").output)
+             if f["kind"] == "geometry_mismatch"]
+    assert len(found) == 1 and found[0]["well_id"] == "W3" and "610250" in found[0]["message"]

@@ -7,18 +7,35 @@ import shutil
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pyogrio
 import pytest
 import shapely
 from pyproj import CRS as PCRS, Transformer
 
-from hydroatlas.export.webmap import safe_text
+from hydroatlas.export.webmap import geojson_text, safe_text
 
 from conftest import CRS, cli, require_all, write_csv
 
 ROOT = Path(__file__).resolve().parent.parent
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
-EVIL = ["<img src=x onerror=alert(1)>", "</script><script>alert(2)</script>", "`${alert(3)}`\\"]
+
+
+def _payload(n: int, where: str) -> str:
+    """A hostile text with a unique marker: if it ever becomes markup, element ``pwn<n>`` exists or a dialog opens."""
+    return f"<img src=x id=pwn{n} onerror=alert({n})>{where}"
+
+
+# one payload per text field that reaches the map, so that each can be found on the page as literal text
+HOSTILE = {
+    "well_ids": [_payload(1, "w"), "</script><script id=pwn2>alert(2)</script>", "`${alert(3)}`\\",
+                 "\"><svg id=pwn4 onload=alert(4)>'"],
+    "well_name": _payload(5, "name"), "zone_id": _payload(6, "zone"), "unit_name": _payload(7, "unit"),
+    "well_attr": _payload(8, "well attr"), "spring_id": _payload(10, "spring"),
+    "spring_name": _payload(11, "spring name"), "spring_attr": _payload(12, "spring attr"),
+    "area_id": _payload(13, "area"), "area_attr": _payload(14, "area attr"), "datum": _payload(15, "datum"),
+}
+EVIL = HOSTILE["well_ids"]
 
 
 def test_safe_text_escapes_html_and_template_literals():
@@ -26,47 +43,77 @@ def test_safe_text_escapes_html_and_template_literals():
     out = safe_text("`${alert(3)}`\\")
     assert "`" not in out and "$" not in out and "\\" not in out
     assert safe_text(None) == "" and safe_text(float("nan")) == "" and safe_text("O'Neil & Co") == "O&#x27;Neil &amp; Co"
+    assert safe_text(pd.NA) == "" and safe_text(pd.NaT) == ""
+
+
+@pytest.mark.parametrize("dtype", ["object", "str", "string", "category"])
+def test_geojson_text_escapes_text_of_any_dtype(dtype):
+    """Text columns are ``object`` or ``str`` depending on the pandas version; both, and others, are escaped."""
+    import geopandas as gpd
+
+    gdf = gpd.GeoDataFrame({"area_id": pd.Series([EVIL[0], "plain"], dtype=dtype), "n": [1, 2],
+                            "share": [0.5, np.nan], "ok": [True, False]},
+                           geometry=[shapely.Point(0, 0), shapely.Point(1, 1)], crs="EPSG:4326")
+    props = [f["properties"] for f in geojson_text(gdf)["features"]]
+    assert props[0]["area_id"] == safe_text(EVIL[0]) and "<" not in props[0]["area_id"]
+    assert props[1]["area_id"] == "plain"
+    assert [p["n"] for p in props] == [1, 2] and props[0]["share"] == 0.5 and props[1]["share"] is None
+    assert [p["ok"] for p in props] == [True, False]
 
 
 @pytest.fixture
-def map_store(empty_store, tmp_path, runner):
-    """A small district with hostile well names, a planar head field, a spring and a recharge area."""
+def map_store(tmp_path, runner):
+    """A small district where every text that reaches the map is hostile: well ids, names, zone ids, the unit
+    name, extra attributes, springs, areas and the vertical-datum label; a planar head field, pumping, a spring
+    and a recharge area, with forward and backward paths."""
+    store = tmp_path / "hostile.gpkg"
+    res = cli(runner, "init", store, "--crs", CRS, "--vertical-datum", HOSTILE["datum"])
+    assert res.exit_code == 0, res.output
     rng = np.random.default_rng(4)
     xs, ys = 610000 + rng.uniform(0, 4000, 12), 4100000 + rng.uniform(0, 3000, 12)
-    names = EVIL + [""] * 9
-    rows = {"units": [["code", "name", "rank", "role"], ["AQ", "aquifer <b>bold</b>", 1, "aquifer"]],
-            "wells": [["well_id", "x", "y", "ground_elev", "total_depth", "name"]],
+    rows = {"units": [["code", "name", "rank", "role"], ["AQ", HOSTILE["unit_name"], 1, "aquifer"]],
+            "wells": [["well_id", "x", "y", "ground_elev", "total_depth", "name", "owner_note"]],
             "picks": [["well_id", "unit", "top_depth", "bottom_depth"]],
             "zones": [["well_id", "zone_id", "top_depth", "bottom_depth"]],
             "heads": [["well_id", "zone_id", "measured_at", "head"]],
-            "ktests": [["well_id", "zone_id", "tested_on", "method", "k", "k_unit"]]}
+            "ktests": [["well_id", "zone_id", "tested_on", "method", "k", "k_unit"]],
+            "pumping": [["well_id", "zone_id", "rate", "rate_unit", "start"]]}
     for i, (x, y) in enumerate(zip(xs, ys)):
         w = EVIL[i] if i < len(EVIL) else f"W{i}"
-        rows["wells"].append([w, f"{x:.2f}", f"{y:.2f}", 300, 100, names[i]])
+        z = HOSTILE["zone_id"] if i < 2 else "S"
+        rows["wells"].append([w, f"{x:.2f}", f"{y:.2f}", 300, 100, HOSTILE["well_name"] if i < 2 else "",
+                              HOSTILE["well_attr"] if i < 2 else ""])
         rows["picks"].append([w, "AQ", 0, 100])
-        rows["zones"].append([w, "S", 20, 30])
-        rows["heads"].append([w, "S", "2024-01-01", f"{250 - 0.003 * (x - 610000):.6f}"])
-        rows["ktests"].append([w, "S", "2024-01-01", "slug", f"{10 ** rng.normal(0, 0.3):.3f}", "m/d"])
+        rows["zones"].append([w, z, 20, 30])
+        rows["heads"].append([w, z, "2024-01-01", f"{250 - 0.003 * (x - 610000):.6f}"])
+        rows["ktests"].append([w, z, "2024-01-01", "slug", f"{10 ** rng.normal(0, 0.3):.3f}", "m/d"])
+    rows["pumping"].append([EVIL[1], "", 200, "m3/d", "2024-01-01"])
     for kind, r in rows.items():
-        res = cli(runner, "import", empty_store, kind, write_csv(tmp_path / f"{kind}.csv", r))
+        res = cli(runner, "import", store, kind, write_csv(tmp_path / f"{kind}.csv", r))
         assert res.exit_code == 0, res.output
-    sp = write_csv(tmp_path / "sp.csv", [["spring_id", "x", "y", "elev", "name"],
-                                         ["S<1>", 613900, 4101500, 238.3, EVIL[1]]])
-    assert cli(runner, "import", empty_store, "springs", sp).exit_code == 0
+    sp = write_csv(tmp_path / "sp.csv", [["spring_id", "x", "y", "elev", "name", "flow_note"],
+                                         [HOSTILE["spring_id"], 613900, 4101500, 238.3, HOSTILE["spring_name"],
+                                          HOSTILE["spring_attr"]]])
+    res = cli(runner, "import", store, "springs", sp)
+    assert res.exit_code == 0, res.output
     tr = Transformer.from_crs(CRS, "EPSG:4326", always_xy=True)
     ring = [list(tr.transform(x, y)) for x, y in [(610200, 4101000), (610800, 4101000), (610800, 4102000),
                                                   (610200, 4102000), (610200, 4101000)]]
     fc = {"type": "FeatureCollection", "features": [{"type": "Feature", "properties": {
-        "area_id": EVIL[0], "kind": "recharge"}, "geometry": {"type": "Polygon", "coordinates": [ring]}}]}
+        "area_id": HOSTILE["area_id"], "kind": "recharge", "cover": HOSTILE["area_attr"]},
+        "geometry": {"type": "Polygon", "coordinates": [ring]}}]}
     (tmp_path / "areas.geojson").write_text(json.dumps(fc))
-    assert cli(runner, "import", empty_store, "areas", tmp_path / "areas.geojson").exit_code == 0
+    res = cli(runner, "import", store, "areas", tmp_path / "areas.geojson")
+    assert res.exit_code == 0, res.output
     out = tmp_path / "out"
-    res = cli(runner, "surface", empty_store, "--unit", "AQ", "--method", "uk", "--sill", 1, "--range", 2000,
+    res = cli(runner, "surface", store, "--unit", "AQ", "--method", "uk", "--sill", 1, "--range", 2000,
               "--variogram", "exponential", "--cell", 50, "--out", out)
     assert res.exit_code == 0, res.output
-    res = cli(runner, "paths", empty_store, "--unit", "AQ", "--porosity", 0.1, "--capture-radius", 150, "--out", out)
-    assert res.exit_code == 0, res.output
-    return empty_store, out
+    for direction in ([], ["--backward"]):
+        res = cli(runner, "paths", store, "--unit", "AQ", "--porosity", 0.1, "--capture-radius", 150, "--out", out,
+                  *direction)
+        assert res.exit_code == 0, res.output
+    return store, out
 
 
 def test_layers_geojson_rfc7946_and_gpkg(map_store, runner):
@@ -133,9 +180,9 @@ def test_map_html_is_self_contained(map_store, runner):
 
     loads = re.findall(r'<(?:script|link|img)[^>]+(?:src|href)="(https?:[^"]+)"', page)
     assert loads == []
-    for evil in EVIL[:2]:
-        assert evil not in page
     assert "licensed professional" in page and "karst" in page
+    # whether hostile texts stay text is checked on the rendered page (test_hostile_texts_stay_text): JSON
+    # writes "<" as \u003c, so searching the HTML source for a payload proves nothing
 
 
 def _browser():
@@ -152,13 +199,59 @@ def _browser():
     return sync_playwright
 
 
+# Runs in the page: hover (mouseover), then click every marker, circle marker, polygon and polyline of the map
+# through Leaflet's own event API (events propagate to the groups, as a real mouse's do), and after each event
+# look for an injected element and collect the texts of the open tooltips and popups.
+INTERACT_JS = """async () => {
+  const map = Object.keys(window).filter(k => /^map_[0-9a-f]+$/.test(k)).map(k => window[k])
+                    .find(v => v instanceof L.Map);
+  const injected = () => document.querySelector('[id^="pwn"]') !== null;
+  const texts = [], problems = [];
+  const note = what => { if (problems.length < 10) problems.push(what); };
+  const grab = sel => document.querySelectorAll(sel).forEach(e => texts.push(e.textContent));
+  if (injected()) note('on load');
+  const features = [];
+  map.eachLayer(l => { if (l instanceof L.Marker || l instanceof L.Path) features.push(l); });
+  let hovered = 0, clicked = 0;
+  for (const l of features) {
+    const at = l.getLatLng ? l.getLatLng() : l.getBounds().getCenter();
+    const ev = {latlng: at, layerPoint: map.latLngToLayerPoint(at), containerPoint: map.latLngToContainerPoint(at)};
+    l.fire('mouseover', ev, true); hovered++;
+    grab('.leaflet-tooltip');
+    if (injected()) note('hover ' + hovered);
+    l.fire('click', ev, true); clicked++;
+    grab('.leaflet-popup-content');
+    if (injected()) note('click ' + clicked);
+    l.fire('mouseout', ev, true);
+    map.closePopup();
+  }
+  await new Promise(r => setTimeout(r, 400));  // image errors and other handlers run asynchronously
+  if (injected()) note('after the interactions');
+  grab('.ha-box'); grab('.leaflet-control-layers-overlays');
+  const circles = [];
+  map.eachLayer(l => { if (l instanceof L.CircleMarker) {
+    const p = map.latLngToContainerPoint(l.getLatLng()), r = map.getContainer().getBoundingClientRect();
+    circles.push([r.left + p.x, r.top + p.y]); } });
+  return {features: features.length, hovered, clicked, texts, problems, circles};
+}"""
+
+# before any page script: count dialogs (and still let them open, so that page.on("dialog") sees them too)
+COUNT_DIALOGS_JS = """window.__dialogs = [];
+for (const name of ['alert', 'confirm', 'prompt']) {
+  const original = window[name].bind(window);
+  window[name] = (...args) => { window.__dialogs.push(name + ': ' + args.join(' ')); return original(...args); };
+}"""
+FIND_INJECTED_JS = "Array.from(document.querySelectorAll('[id^=\"pwn\"]'), e => e.id)"
+
+
 def _open(page_path: Path, screenshot: Path | None = None):
+    """Open a map in headless chromium, hover and click every feature; report what happened."""
     sync_playwright = _browser()
     report = {"requests": [], "console": [], "errors": [], "dialogs": []}
     with sync_playwright() as p:
         browser = p.chromium.launch(executable_path=CHROMIUM, args=[
-            "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run", "--disable-background-networking",
-            "--disable-component-update", "--disable-sync"])
+            "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+            "--disable-background-networking", "--disable-component-update", "--disable-sync"])
         page = browser.new_page(viewport={"width": 1280, "height": 900})
         page.on("request", lambda r: report["requests"].append(r.url))
         page.on("console", lambda m: report["console"].append((m.type, m.text)))
@@ -168,35 +261,52 @@ def _open(page_path: Path, screenshot: Path | None = None):
             report["dialogs"].append(d.message)
             d.dismiss()
         page.on("dialog", on_dialog)
+        page.add_init_script(COUNT_DIALOGS_JS)
         page.goto(page_path.resolve().as_uri())
         page.wait_for_selector(".leaflet-container")
         page.wait_for_timeout(800)
         report["overlays"] = [t.strip() for t in page.locator(".leaflet-control-layers-overlays label").all_inner_texts()]
         report["markers"] = page.locator(".leaflet-interactive").count()
         report["paths"] = page.locator("path.leaflet-interactive").count()
-        # open every popup so that hostile names are rendered, then look for injected nodes
-        for marker in page.locator("path.leaflet-interactive").all()[:40]:
-            try:
-                marker.click(timeout=500, force=True)
-            except Exception:  # noqa: BLE001 - some paths are covered by others
-                pass
-        page.wait_for_timeout(300)
-        report["injected_imgs"] = page.evaluate("document.querySelectorAll('img[src=\"x\"]').length")
-        report["popup_texts"] = page.locator(".leaflet-popup-content").all_inner_texts()
         if screenshot is not None:
-            page.keyboard.press("Escape")
             page.screenshot(path=str(screenshot))
+        report.update(page.evaluate(INTERACT_JS))
+        # a real mouse over every circle marker (wells, pumping wells): the tooltips it opens; the other
+        # overlays are switched off first (with the layer switcher) so that they do not cover the wells
+        for label in page.locator(".leaflet-control-layers-overlays label").all():
+            if not label.inner_text().strip().startswith(("Wells", "Pumping wells")):
+                label.locator("input").uncheck()
+        report["mouse_tooltips"] = []
+        for x, y in report["circles"]:
+            page.mouse.move(x, y)
+            page.wait_for_timeout(40)
+            report["mouse_tooltips"] += page.locator(".leaflet-tooltip").all_text_contents()
+            if page.evaluate(FIND_INJECTED_JS):
+                report["problems"].append(f"mouse at {x:.0f},{y:.0f}")
+        page.mouse.move(2, 2)
+        page.wait_for_timeout(300)
+        report["page_dialogs"] = page.evaluate("window.__dialogs")
+        report["injected"] = page.evaluate(FIND_INJECTED_JS)
         browser.close()
     return report
 
 
 @pytest.mark.browser
-def test_hostile_names_do_not_run(map_store, runner):
+def test_hostile_texts_stay_text(map_store, runner):
+    """Every hostile text is shown as literal text on hover and on click, and none becomes markup or script."""
     store, out = map_store
-    cli(runner, "map", store, "--surfaces", out, "--out", out / "map.html")
+    res = cli(runner, "map", store, "--surfaces", out, "--out", out / "map.html")
+    assert res.exit_code == 0, res.output
     rep = _open(out / "map.html")
-    assert rep["dialogs"] == [] and rep["errors"] == []
-    assert rep["injected_imgs"] == 0
+    assert rep["features"] > 30 and rep["hovered"] == rep["clicked"] == rep["features"]
+    assert rep["problems"] == [] and rep["injected"] == []
+    assert rep["dialogs"] == [] and rep["page_dialogs"] == [] and rep["errors"] == []
+    shown = "\n".join(rep["texts"])
+    for field, value in HOSTILE.items():
+        for text in (value if isinstance(value, list) else [value]):
+            assert text in shown, f"{field} {text!r} is not shown as text"
+    hovered = "\n".join(rep["mouse_tooltips"])
+    assert all(w in hovered for w in EVIL), rep["mouse_tooltips"]
     outside = [u for u in rep["requests"] if not u.startswith(("file:", "data:"))]
     assert outside == []
 

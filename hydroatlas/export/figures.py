@@ -24,6 +24,7 @@ import pandas as pd  # noqa: E402
 from matplotlib.patches import Patch  # noqa: E402
 
 from ..errors import ParameterError  # noqa: E402
+from .names import atomic_path  # noqa: E402
 
 FOOTER = "Screening-level estimate; see the cautions in the README."
 DPI = 150
@@ -40,16 +41,19 @@ ROLE_STYLE = {
     "other": (YELLOW, 0.20, "..", "other"),
 }
 
-_RC = {"svg.fonttype": "none", "svg.hashsalt": "hydroatlas", "hatch.color": "#555555", "font.size": 9}
+# ids and codes are drawn as typed: a "$" in a well id must not start mathtext (which may refuse to parse it)
+_RC = {"svg.fonttype": "none", "svg.hashsalt": "hydroatlas", "hatch.color": "#555555", "font.size": 9,
+       "text.parse_math": False}
 
 
 def _write(fig, stem) -> list[Path]:
     """Save ``fig`` as ``<stem>.png`` (150 dpi) and ``<stem>.svg``; return both paths."""
     stem = Path(stem)
-    stem.parent.mkdir(parents=True, exist_ok=True)
     paths = [stem.with_name(stem.name + ".png"), stem.with_name(stem.name + ".svg")]
-    fig.savefig(paths[0], dpi=DPI, metadata={"Software": "hydroatlas"})
-    fig.savefig(paths[1], metadata={"Date": None, "Creator": "hydroatlas"})
+    with atomic_path(paths[0]) as tmp:
+        fig.savefig(tmp, dpi=DPI, metadata={"Software": "hydroatlas"})
+    with atomic_path(paths[1]) as tmp:
+        fig.savefig(tmp, metadata={"Date": None, "Creator": "hydroatlas"})
     return paths
 
 

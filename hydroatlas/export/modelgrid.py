@@ -7,6 +7,8 @@ from pathlib import Path
 
 import numpy as np
 
+from .names import atomic_path, ensure_folder, output_path, write_text
+
 CF_VERSION = "CF-1.8"
 
 #: variable -> (long name, unit template; {L} is the length unit)
@@ -39,7 +41,6 @@ def write_model_grid(path, *, arrays: dict, active, x, y, layer_units: list[str]
     import xarray as xr
 
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
     nlay, nrow, ncol = next(iter(arrays.values())).shape
     L = length_unit
     rotated = abs(grid_info.get("rotation", 0.0)) > 0
@@ -80,16 +81,18 @@ def write_model_grid(path, *, arrays: dict, active, x, y, layer_units: list[str]
                      "source": source, "comment": caution,
                      "hydroatlas_grid": json.dumps(grid_info), "k_note": f"K in {L}/d, as models commonly use"})
     encoding = {name: {"zlib": True, "complevel": 4} for name in arrays}
-    ds.to_netcdf(path, engine="netcdf4", encoding=encoding)
-    folder = path.with_name(path.stem + "_arrays")
-    folder.mkdir(exist_ok=True)
+    with atomic_path(path) as tmp:
+        ds.to_netcdf(tmp, engine="netcdf4", encoding=encoding)
+    folder = ensure_folder(path.with_name(path.stem + "_arrays"))
     files = {}
     for name, arr in list(arrays.items()) + [("active", np.asarray(active, dtype="int8")[None])]:
         files[name] = []
         for k in range(arr.shape[0]):
             stem = f"{name}_layer{k + 1}" if name != "active" else "active"
-            np.save(folder / f"{stem}.npy", arr[k])
-            np.savetxt(folder / f"{stem}.txt", arr[k], fmt="%d" if arr.dtype.kind in "iub" else "%.6g")
+            with atomic_path(output_path(folder, f"{stem}.npy")) as tmp:
+                np.save(tmp, arr[k])
+            with atomic_path(output_path(folder, f"{stem}.txt")) as tmp:
+                np.savetxt(tmp, arr[k], fmt="%d" if arr.dtype.kind in "iub" else "%.6g")
             files[name].append({"npy": f"{folder.name}/{stem}.npy", "txt": f"{folder.name}/{stem}.txt"})
     manifest = {
         "netcdf": path.name, "conventions": CF_VERSION, "shape": {"layers": nlay, "rows": nrow, "cols": ncol},
@@ -101,8 +104,7 @@ def write_model_grid(path, *, arrays: dict, active, x, y, layer_units: list[str]
                      "the rotation is 0); column 1 is next to the origin",
         "text_format": "whitespace-separated, one grid row per line", "files": files, "history": history,
         "caution": caution}
-    manifest_path = path.parent / "manifest.json"
-    manifest_path.write_text(json.dumps(manifest, indent=2))
+    manifest_path = write_text(path.parent / "manifest.json", json.dumps(manifest, indent=2))
     return {"netcdf": str(path), "arrays": str(folder), "manifest": str(manifest_path)}
 
 

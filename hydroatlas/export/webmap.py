@@ -3,8 +3,17 @@
 Leaflet (and jQuery, which folium's popups call) are inlined from the copies
 vendored under ``export/vendor`` (taken from the npm registry, licences kept
 beside them); the Leaflet control icons are inlined as data URIs. A basemap
-is optional. Every text that comes from imported files is escaped with
-:func:`safe_text` before it reaches the page.
+is optional.
+
+Every text that comes from imported files or from the store (ids, names, unit
+codes, extra attributes, the vertical-datum label) reaches the page through
+:func:`safe_text`, here and only here: the helpers below (:func:`text_tooltip`,
+:func:`table_popup`, :func:`label_icon`, :func:`geojson_text`,
+:func:`feature_tooltip`, :func:`legend_html` and :func:`write_webmap` for layer
+names, title, notes and cautions) take plain text and escape it, so a caller
+never writes HTML with imported text in it. Leaflet and folium put tooltip,
+popup, layer-switcher and GeoJSON property texts into ``innerHTML`` (and folium
+inside JavaScript template literals), so they are escaped whatever their type.
 """
 
 from __future__ import annotations
@@ -15,6 +24,9 @@ import json
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
+
+from .names import write_text
 
 VENDOR = Path(__file__).resolve().parent / "vendor"
 
@@ -30,7 +42,9 @@ def safe_text(value) -> str:
     replaced by entities so that a text cannot end a template literal or open
     an interpolation.
     """
-    if value is None or (isinstance(value, float) and not np.isfinite(value)):
+    if value is None or (isinstance(value, (float, np.floating)) and not np.isfinite(value)):
+        return ""
+    if not isinstance(value, (str, list, tuple, dict, np.ndarray)) and pd.isna(value):  # NaT, pd.NA
         return ""
     text = html.escape(str(value), quote=True)
     return text.replace("`", "&#96;").replace("$", "&#36;").replace("\\", "&#92;")
@@ -63,6 +77,72 @@ def hex_colors(values, vmin, vmax, cmap_name: str) -> list[str]:
     return out
 
 
+def text_tooltip(text):
+    """A folium tooltip showing ``text`` as plain text."""
+    import folium
+
+    return folium.Tooltip(safe_text(text))
+
+
+def label_icon(text, *, size=(40, 14)):
+    """A folium DivIcon showing ``text`` as a small map label."""
+    import folium
+
+    return folium.DivIcon(html=f"<div class='ha-label'>{safe_text(text)}</div>", icon_size=size,
+                          icon_anchor=(size[0] // 2, size[1] // 2))
+
+
+def attribute_pairs(attrs) -> list[tuple[str, str]]:
+    """(name, value) pairs of a record's extra attributes (the store's ``attrs`` JSON text); [] when none."""
+    if attrs is None or (isinstance(attrs, float) and not np.isfinite(attrs)) or attrs == "":
+        return []
+    try:
+        obj = json.loads(attrs) if isinstance(attrs, str) else attrs
+    except ValueError:
+        return [("attributes", str(attrs))]
+    if not isinstance(obj, dict):
+        return [("attributes", str(obj))]
+    return [(str(k), "" if v is None else str(v)) for k, v in obj.items()]
+
+
+def table_popup(heading: list[str], header: list[str] | None = None, rows=(), *, attributes=(),
+                max_width: int = 420):
+    """A folium popup: heading lines, an optional table, then extra attributes; every text escaped here.
+
+    Parameters
+    ----------
+    heading : list of str
+        Lines shown first; the first in bold.
+    header : list of str, optional
+        Column titles of the table.
+    rows : iterable of sequences
+        Table rows (plain values; None and NaN show as empty cells).
+    attributes : iterable of (name, value)
+        Extra attributes, shown as a two-column table.
+    """
+    import folium
+
+    heading = [line for line in heading if safe_text(line)]
+    lines = [f"<b>{safe_text(line)}</b>" if i == 0 else safe_text(line) for i, line in enumerate(heading)]
+    parts = ["<br>".join(lines)]
+    if header:
+        body = "".join("<tr>" + "".join(f"<td>{safe_text(v)}</td>" for v in row) + "</tr>" for row in rows)
+        parts.append("<table class='ha-table'><tr>" + "".join(f"<th>{safe_text(h)}</th>" for h in header)
+                     + f"</tr>{body}</table>")
+    attributes = list(attributes)
+    if attributes:
+        parts.append("<table class='ha-table'>" + "".join(
+            f"<tr><th>{safe_text(k)}</th><td>{safe_text(v)}</td></tr>" for k, v in attributes) + "</table>")
+    return folium.Popup("".join(parts), max_width=max_width)
+
+
+def feature_tooltip(fields: list[str], aliases: list[str]):
+    """A folium GeoJsonTooltip; the values must come from :func:`geojson_text` (escaped there)."""
+    import folium
+
+    return folium.GeoJsonTooltip(fields=list(fields), aliases=[safe_text(a) for a in aliases])
+
+
 def legend_html(title: str, vmin: float, vmax: float, cmap_name: str, fmt=lambda v: f"{v:.3g}") -> str:
     stops = ", ".join(hex_colors(np.linspace(vmin, vmax, 8), vmin, vmax, cmap_name))
     return (f"<div><b>{safe_text(title)}</b><div style='height:10px;width:200px;margin:3px 0;"
@@ -78,17 +158,20 @@ def arrow_svg(azimuth: float, size: int = 18) -> str:
 
 
 def write_webmap(path, *, title: str, center, layers: list, legends: list[str], cautions: list[str],
-                 tiles: str | None = None, attribution: str | None = None) -> Path:
+                 notes: list[str] = (), tiles: str | None = None, attribution: str | None = None) -> Path:
     """Write the map.
 
     Parameters
     ----------
+    title : str
+        Plain text (escaped here).
     layers : list of (name, callable)
-        Each callable receives a ``folium.FeatureGroup`` and adds its features to it.
+        Plain layer names (escaped here) and callables that receive a ``folium.FeatureGroup`` and add
+        their features to it with the helpers of this module.
     legends : list of str
-        HTML snippets (already safe) shown in the legend box.
-    cautions : list of str
-        Plain texts shown on the map (escaped here).
+        HTML snippets made by :func:`legend_html` shown in the legend box.
+    cautions, notes : list of str
+        Plain texts shown on the map (escaped here); notes come before the legends.
     tiles : str, optional
         URL template of a basemap (for users who are online); none by default.
     """
@@ -108,21 +191,26 @@ def write_webmap(path, *, title: str, center, layers: list, legends: list[str], 
     folium.LayerControl(collapsed=False).add_to(m)
     box = ("<div class='ha-box' style='position:fixed;bottom:18px;left:10px;z-index:9999'>"
            f"<div style='font-weight:bold;margin-bottom:4px'>{safe_text(title)}</div>"
+           + "".join(f"<p style='margin:0 0 4px 0;font-size:11px'>{safe_text(n)}</p>" for n in notes)
            + "".join(legends)
            + "".join(f"<p style='margin:4px 0 0 0;font-size:11px'>{safe_text(c)}</p>" for c in cautions)
            + "</div>")
     root.html.add_child(folium.Element(box))
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    page = root.render()
-    path.write_text(page, encoding="utf-8")
-    return path
+    return write_text(path, root.render())
 
 
-def geojson_text(gdf) -> str:
-    """GeoJSON of a GeoDataFrame in WGS 84 with every text property escaped."""
+def geojson_text(gdf) -> dict:
+    """GeoJSON (as a dict) of a GeoDataFrame in WGS 84, every property that is not a number escaped.
+
+    Text columns have the ``object`` or the ``str`` dtype depending on the pandas version and its
+    options, and categories, dates or mixed columns are text on the page too, so every column that is
+    not numeric or boolean goes through :func:`safe_text`.
+    """
+    from pandas.api.types import is_bool_dtype, is_numeric_dtype
+
     gdf = gdf.to_crs(4326).copy()
     for col in gdf.columns:
-        if col != gdf.geometry.name and gdf[col].dtype == object:
-            gdf[col] = gdf[col].map(safe_text)
+        if col == gdf.geometry.name or is_bool_dtype(gdf[col]) or is_numeric_dtype(gdf[col]):
+            continue
+        gdf[col] = pd.Series([safe_text(v) for v in gdf[col]], index=gdf.index, dtype=object)
     return json.loads(gdf.to_json(na="null"))

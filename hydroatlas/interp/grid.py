@@ -18,6 +18,8 @@ from ..errors import ParameterError
 
 #: default ceiling on the number of cells of one grid
 MAX_CELLS = 50_000_000
+#: smallest cell size relative to the size of the coordinates (keeps cell edges distinct in float64)
+MIN_CELL_RELATIVE = 1e-9
 
 
 @dataclass(frozen=True)
@@ -46,7 +48,15 @@ class GridSpec:
         if not (math.isfinite(self.cell) and self.cell > 0):
             raise ParameterError(f"grid cell size must be a finite number > 0; got {self.cell}")
         if not (math.isfinite(self.x0) and math.isfinite(self.y0)):
-            raise ParameterError("grid origin must be finite")
+            raise ParameterError(f"grid origin must be finite; got ({self.x0}, {self.y0})")
+        for name in ("nrows", "ncols"):
+            n = getattr(self, name)
+            try:
+                whole = not isinstance(n, bool) and float(n).is_integer()
+            except (TypeError, ValueError):
+                whole = False
+            if not whole:
+                raise ParameterError(f"grid {name} must be a whole number; got {n!r}")
         if int(self.nrows) < 1 or int(self.ncols) < 1:
             raise ParameterError(f"grid shape must be at least 1 x 1; got {self.nrows} x {self.ncols}")
         object.__setattr__(self, "nrows", int(self.nrows))
@@ -55,8 +65,19 @@ class GridSpec:
     @classmethod
     def from_bounds(cls, xmin, ymin, xmax, ymax, cell, *, crs=None, max_cells: int = MAX_CELLS) -> "GridSpec":
         """Smallest grid of ``cell``-sized cells covering the bounds (snapped outward to multiples of cell)."""
-        if not (cell > 0):
-            raise ParameterError(f"cell size must be > 0; got {cell}")
+        bounds = (xmin, ymin, xmax, ymax)
+        if not all(isinstance(v, (int, float, np.number)) and math.isfinite(v) for v in bounds):
+            raise ParameterError(f"grid bounds must be finite numbers; got {bounds}")
+        if xmax < xmin or ymax < ymin:
+            raise ParameterError(f"grid bounds must run from minimum to maximum; got {bounds}")
+        if not (isinstance(cell, (int, float, np.number)) and math.isfinite(cell) and cell > 0):
+            raise ParameterError(f"cell size must be a finite number > 0; got {cell}")
+        magnitude = max(1.0, *(abs(float(v)) for v in bounds))
+        if cell < MIN_CELL_RELATIVE * magnitude:
+            raise ParameterError(f"a cell size of {cell:g} is too small to be told apart at coordinates of "
+                                 f"{magnitude:g}; choose a larger cell size")
+        if isinstance(max_cells, bool) or not isinstance(max_cells, (int, np.integer)) or max_cells < 1:
+            raise ParameterError(f"max_cells must be a whole number >= 1; got {max_cells!r}")
         x0 = math.floor(xmin / cell) * cell
         y1 = math.ceil(ymax / cell) * cell
         ncols = max(1, int(math.ceil((xmax - x0) / cell - 1e-9)))
@@ -104,6 +125,39 @@ class GridSpec:
         return {"x0": self.x0, "y0": self.y0, "cell": self.cell, "nrows": self.nrows, "ncols": self.ncols}
 
 
+#: cells along the longer side of an automatic grid
+AUTO_CELLS_ACROSS = 200
+#: relative size below which the spread of points across their main direction counts as none (points on a line)
+FLAT_TOLERANCE = 1e-6
+
+
+def spread_rank(xy) -> int:
+    """How many directions the points spread in: 0 (one location), 1 (on one line) or 2 (over an area).
+
+    The spread across the main direction counts only above ``FLAT_TOLERANCE`` times the spread along it.
+    """
+    pts = np.unique(np.asarray(xy, float).reshape(-1, 2), axis=0)
+    if len(pts) < 2:
+        return 0
+    sv = np.linalg.svd(pts - pts.mean(axis=0), compute_uv=False)
+    if not sv[0] > 0:
+        return 0
+    return 2 if len(sv) > 1 and sv[1] > FLAT_TOLERANCE * sv[0] else 1
+
+
+def auto_cell(xmin, ymin, xmax, ymax, *, cells_across: int = AUTO_CELLS_ACROSS) -> float:
+    """Cell size giving ``cells_across`` cells along the longer side of the bounds.
+
+    Raises ParameterError when the bounds have no extent (one point), where any
+    cell size would be arbitrary: give one explicitly.
+    """
+    span = max(xmax - xmin, ymax - ymin)
+    if not (math.isfinite(span) and span > 0):
+        raise ParameterError(f"the area ({xmin:g}, {ymin:g}) - ({xmax:g}, {ymax:g}) has no extent; "
+                             "give a cell size")
+    return float(span / cells_across)
+
+
 def mask_from_polygons(grid: GridSpec, geometries) -> np.ndarray:
     """True where the cell centre lies inside any of the polygons (store CRS)."""
     from rasterio.features import geometry_mask
@@ -118,8 +172,8 @@ def mask_from_buffer(grid: GridSpec, xy, distance: float, *, rows_per_tile: int 
     """True where the cell centre lies within ``distance`` of a data point."""
     from scipy.spatial import cKDTree
 
-    if not distance > 0:
-        raise ParameterError(f"buffer distance must be > 0; got {distance}")
+    if not (math.isfinite(distance) and distance > 0):
+        raise ParameterError(f"buffer distance must be a finite number > 0; got {distance}")
     tree = cKDTree(np.asarray(xy, float))
     out = np.zeros(grid.shape, dtype=bool)
     for r0 in range(0, grid.nrows, rows_per_tile):

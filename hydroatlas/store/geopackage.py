@@ -25,6 +25,7 @@ import shapely
 from pyproj import CRS
 
 from ..errors import NotAStoreError, ParameterError, StoreError
+from . import gpkg_sql
 from .base import Store, StoreSettings, WriteResult
 from .schema import HISTORY_TABLE, SCHEMA_VERSION, TABLES, Table
 
@@ -46,28 +47,48 @@ def _now() -> str:
     return datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
 
 
-def encode_geometries(geoms, srs_id: int) -> list[bytes]:
-    """GeoPackage binary blobs (little-endian header, xy envelope except for points)."""
+def encode_geometries(geoms, srs_id: int) -> list[bytes | None]:
+    """GeoPackage binary blobs (little-endian header, xy envelope except for points).
+
+    An empty geometry gets the empty flag (bit 4) and no envelope, one of the two
+    encodings requirement 149 allows (the one GDAL writes); an empty point's WKB
+    holds NaN coordinates as the spec asks. None stays None (SQL NULL).
+    """
     geoms = np.asarray(geoms, dtype=object)
     wkbs = shapely.to_wkb(geoms, byte_order=1, output_dimension=2)
+    type_ids = shapely.get_type_id(geoms)
+    empty = shapely.is_empty(geoms)
+    bounds = shapely.bounds(geoms)
     blobs = []
-    for geom, wkb in zip(geoms, wkbs):
-        if shapely.get_type_id(geom) == 0:  # point: no envelope
+    for wkb, type_id, is_empty, (minx, miny, maxx, maxy) in zip(wkbs, type_ids, empty, bounds):
+        if wkb is None:
+            blobs.append(None)
+        elif is_empty:
+            blobs.append(b"GP\x00\x11" + struct.pack("<i", srs_id) + wkb)
+        elif type_id == 0:  # point: no envelope
             blobs.append(b"GP\x00\x01" + struct.pack("<i", srs_id) + wkb)
         else:
-            minx, miny, maxx, maxy = shapely.bounds(geom)
             blobs.append(b"GP\x00\x03" + struct.pack("<i4d", srs_id, minx, maxx, miny, maxy) + wkb)
     return blobs
 
 
 def decode_geometries(blobs) -> np.ndarray:
-    """Shapely geometries from GeoPackage binary blobs."""
-    wkbs = []
+    """Shapely geometries from GeoPackage binary blobs; NULL gives None, the empty flag an empty geometry."""
+    wkbs, empty = [], []
     for blob in blobs:
+        if blob is None:
+            wkbs.append(None)
+            empty.append(False)
+            continue
         flags = blob[3]
         start = 8 + _ENVELOPE_BYTES[(flags >> 1) & 0b111]
         wkbs.append(bytes(blob[start:]))
-    return shapely.from_wkb(wkbs)
+        empty.append(bool(flags & 0b1_0000))
+    geoms = shapely.from_wkb(wkbs)
+    for i in np.flatnonzero(np.asarray(empty, dtype=bool)):
+        if not geoms[i].is_empty:  # the flag wins over a writer that left coordinates behind
+            geoms[i] = shapely.from_wkt(f"{geoms[i].geom_type.upper()} EMPTY")
+    return geoms
 
 
 def _column_sql(col) -> str:
@@ -179,8 +200,13 @@ class GeoPackageStore(Store):
             raise StoreError(f"{path} already exists; choose a new file name for the store")
         if not path.parent.exists():
             raise StoreError(f"folder {path.parent} does not exist")
-        conn = cls._connect(path)
         try:
+            conn = cls._connect(path)
+        except sqlite3.Error as exc:
+            path.unlink(missing_ok=True)
+            raise (gpkg_sql.friendly_sqlite_error(exc, path) or exc) from None
+        try:
+            gpkg_sql.use_wal(conn)  # readers go on while an import writes
             conn.execute("BEGIN")
             conn.execute(f"PRAGMA application_id = {GPKG_APPLICATION_ID}")
             conn.execute(f"PRAGMA user_version = {GPKG_USER_VERSION}")
@@ -215,10 +241,13 @@ class GeoPackageStore(Store):
                 if spec.geometry:
                     conn.execute("INSERT INTO gpkg_geometry_columns VALUES (?, 'geom', ?, ?, 0, 0)",
                                  (spec.name, spec.geometry, srs_id))
+                    gpkg_sql.add_spatial_index(conn, spec.name, "geom")
             conn.execute("COMMIT")
-        except BaseException:
+        except BaseException as exc:
             conn.close()
             path.unlink(missing_ok=True)
+            if isinstance(exc, sqlite3.Error) and gpkg_sql.friendly_sqlite_error(exc, path):
+                raise gpkg_sql.friendly_sqlite_error(exc, path) from None
             raise
         return cls(path, conn, settings, srs_id)
 
@@ -227,25 +256,33 @@ class GeoPackageStore(Store):
         path = Path(path)
         if not path.is_file():
             raise NotAStoreError(f"{path} does not exist; create a store with 'hydroatlas init {path} --crs EPSG:NNNN'")
+        gpkg_sql.check_sqlite_file(path)
+        conn = None
         try:
-            conn = cls._connect(path)
+            conn = cls._connect(path, read_only=not gpkg_sql.is_writable(path))
+            gpkg_sql.use_wal(conn)  # a store made before WAL, or rewritten by another tool
             app_id = conn.execute("PRAGMA application_id").fetchone()[0]
             has_settings = conn.execute(
                 "SELECT count(*) FROM sqlite_master WHERE type='table' AND name=?", (SETTINGS_TABLE,)).fetchone()[0]
-        except sqlite3.DatabaseError:
-            raise NotAStoreError(f"{path} is not a hydroatlas store (not a GeoPackage/SQLite file)") from None
-        if app_id != GPKG_APPLICATION_ID or not has_settings:
-            conn.close()
-            raise NotAStoreError(f"{path} is not a hydroatlas store (a GeoPackage made by "
-                                 "'hydroatlas init' is expected)")
-        values = dict(conn.execute(f"SELECT key, value FROM {SETTINGS_TABLE}").fetchall())
+            if app_id != GPKG_APPLICATION_ID or not has_settings:
+                conn.close()
+                raise NotAStoreError(f"{path} is not a hydroatlas store (a GeoPackage made by "
+                                     "'hydroatlas init' is expected)")
+            values = dict(conn.execute(f"SELECT key, value FROM {SETTINGS_TABLE}").fetchall())
+            srs_id = conn.execute("SELECT srs_id FROM gpkg_geometry_columns WHERE table_name='wells'").fetchone()[0]
+        except sqlite3.Error as exc:
+            if conn is not None:
+                conn.close()
+            friendly = gpkg_sql.friendly_sqlite_error(exc, path)
+            raise (friendly or NotAStoreError(f"{path} is not a hydroatlas store (not a GeoPackage/SQLite file)")
+                   ) from None
         settings = StoreSettings(CRS.from_wkt(values["crs"]), values["length_unit"], values["vertical_datum"])
-        srs_id = conn.execute("SELECT srs_id FROM gpkg_geometry_columns WHERE table_name='wells'").fetchone()[0]
         return cls(path, conn, settings, srs_id)
 
     @staticmethod
-    def _connect(path) -> sqlite3.Connection:
-        conn = sqlite3.connect(str(path), isolation_level=None)
+    def _connect(path, *, read_only: bool = False) -> sqlite3.Connection:
+        # GeoPackage SQL functions (for R-tree triggers, ours or a GIS's) and the busy timeout
+        conn = gpkg_sql.connect(path, read_only=read_only)
         conn.execute("PRAGMA foreign_keys = ON")
         conn.execute("PRAGMA synchronous = NORMAL")
         conn.execute("PRAGMA cache_size = -262144")  # 256 MiB page cache for large imports
@@ -335,17 +372,29 @@ class GeoPackageStore(Store):
     def transaction(self) -> Iterator["GeoPackageStore"]:
         if self._in_txn:
             raise StoreError("nested transactions are not supported")
-        self._conn.execute("BEGIN IMMEDIATE")
+        gpkg_sql.begin_write(self._conn, self.location)  # BEGIN IMMEDIATE; a lock or read-only store: StoreError
         self._in_txn = True
         try:
             yield self
+        except sqlite3.Error as exc:
+            self._rollback()
+            friendly = gpkg_sql.friendly_sqlite_error(exc, self.location)
+            if friendly is None:
+                raise
+            raise friendly from exc
         except BaseException:
-            self._conn.execute("ROLLBACK")
+            self._rollback()
             raise
         else:
-            self._conn.execute("COMMIT")
+            gpkg_sql.commit_write(self._conn, self.location)
         finally:
             self._in_txn = False
+
+    def _rollback(self) -> None:
+        try:
+            self._conn.execute("ROLLBACK")
+        except sqlite3.Error:
+            pass  # SQLite has already rolled back (a full disk or an I/O error can end the transaction itself)
 
     def _execute_chunk(self, sql: str, rows: list[tuple]) -> None:
         self._conn.executemany(sql, rows)
@@ -410,7 +459,9 @@ class GeoPackageStore(Store):
 
     def _refresh_extent(self, table: str) -> None:
         blobs = [r[0] for r in self._conn.execute(f"SELECT geom FROM {q(table)}")]
-        minx, miny, maxx, maxy = shapely.total_bounds(decode_geometries(blobs))
+        # NULL and empty geometries have no extent; none at all leaves the extent NULL
+        minx, miny, maxx, maxy = (None if np.isnan(v) else float(v)
+                                  for v in shapely.total_bounds(decode_geometries(blobs)))
         self._conn.execute(
             "UPDATE gpkg_contents SET min_x=?, min_y=?, max_x=?, max_y=?, last_change=? WHERE table_name=?",
             (minx, miny, maxx, maxy, _now(), table))

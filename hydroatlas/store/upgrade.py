@@ -41,6 +41,7 @@ _OLD_KTEST_ID = re.compile(r"^(\d{4}-\d{2}-\d{2})\|([a-z_]+)\|.*\|.*$")
 
 def upgrade_geopackage(path) -> tuple[str, str]:
     """Migrate the GeoPackage store at ``path`` to :data:`SCHEMA_VERSION`; returns (old, new) versions."""
+    from . import gpkg_sql
     from .geopackage import GeoPackageStore, _now, history_triggers, q, table_ddl
 
     path = Path(path)
@@ -51,7 +52,7 @@ def upgrade_geopackage(path) -> tuple[str, str]:
             return version, version
         if version not in UPGRADABLE_VERSIONS:
             raise version_problem(version, path)
-        conn.execute("BEGIN IMMEDIATE")
+        gpkg_sql.begin_write(conn, path)
         try:
             for spec in TABLES.values():
                 if spec.name == HISTORY_TABLE:
@@ -89,7 +90,10 @@ def upgrade_geopackage(path) -> tuple[str, str]:
                 taken.add((w, z, new))
             conn.execute(f"INSERT OR REPLACE INTO {SETTINGS_TABLE} VALUES ('schema_version', ?)", (SCHEMA_VERSION,))
             conn.execute(f"INSERT OR REPLACE INTO {SETTINGS_TABLE} VALUES ('upgraded_at', ?)", (_now(),))
-            conn.execute("COMMIT")
+            for spec in TABLES.values():
+                if spec.geometry:
+                    gpkg_sql.add_spatial_index(conn, spec.name)
+            gpkg_sql.commit_write(conn, path)
         except BaseException:
             conn.execute("ROLLBACK")
             raise

@@ -9,6 +9,7 @@ import pandas as pd
 
 from .. import assign
 from ..errors import InsufficientDataError, ParameterError
+from ..export.names import ensure_folder, file_stem, output_path, unit_path
 from ..store import Store
 from .store_jobs import (
     CAUTION, _crs_to_m, _length_to_m, _unit_members, tests_with_units, unit_stats, zone_assignment,
@@ -83,14 +84,15 @@ def export_layers(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") 
     import geopandas as gpd
     import pyogrio
 
-    from ..export.layers import write_layer
+    from ..export.layers import write_geojson, write_layer
 
     out = Path(out)
     folder = Path(surfaces) if surfaces is not None else out
     crs = store.settings.crs
     per_unit, zones = well_summaries(store, k_unit=k_unit)
     wells = store.read("wells", ["well_id", "x", "y", "ground_elev", "total_depth", "kind", "name"])
-    for code in store.read("units").sort_values("rank")["code"]:
+    codes = list(store.read("units").sort_values("rank")["code"])
+    for code in codes:
         sub = per_unit[per_unit["unit"] == code].set_index("well_id")
         wells[f"k_{code}"] = wells["well_id"].map(sub["k"])
         wells[f"n_tests_{code}"] = wells["well_id"].map(sub["n_tests"]).fillna(0).astype(int)
@@ -101,8 +103,9 @@ def export_layers(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") 
     z["straddles"] = z["straddles"].astype(bool)
     layers["zones"] = gpd.GeoDataFrame(z, geometry=gpd.points_from_xy(z["x"], z["y"]), crs=crs)
     contours = []
-    for tif in sorted(folder.glob("*_head.tif")):
-        unit = tif.name[: -len("_head.tif")]
+    for unit in codes:  # found under the names `surface` gives them, whatever the code holds
+        if not unit_path(folder, unit, "head.tif").is_file():
+            continue
         grid, head = read_surface(folder, unit, "head", store.location)
         c = contour_lines(grid, head, _nice_levels(head), crs)
         c["unit"] = unit
@@ -120,29 +123,29 @@ def export_layers(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") 
             if src.resolve() != gpkg.resolve():
                 write_layer(gpkg, name, gdf)
             layers[name] = gdf
-    gj = out / "geojson"
-    gj.mkdir(parents=True, exist_ok=True)
+    gj = ensure_folder(out / "geojson")
     files = {"gpkg": str(gpkg)}
     for name, gdf in layers.items():
-        path = gj / f"{name}.geojson"
-        if path.exists():
-            path.unlink()
-        pyogrio.write_dataframe(gdf.to_crs(4326), path, driver="GeoJSON", layer_options={"RFC7946": "YES"})
-        files[name] = str(path)
+        files[name] = str(write_geojson(output_path(gj, f"{name}.geojson"), gdf))
     return files
 
 
 def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces=None, k_unit: str = "m/d",
               tiles: str | None = None) -> Path:
-    """One self-contained HTML map of the store and of the results found in ``surfaces``."""
+    """One self-contained HTML map of the store and of the results found in ``surfaces``.
+
+    Imported texts (ids, names, codes, extra attributes, the vertical datum) are handed to the helpers of
+    :mod:`hydroatlas.export.webmap` as plain text; they escape them. No HTML is written here.
+    """
     import folium
     import geopandas as gpd
     import pyogrio
     import rasterio
     from rasterio.warp import Resampling, calculate_default_transform, reproject
 
-    from ..export.webmap import (K_COLORMAP, TIME_COLORMAP, arrow_svg, geojson_text, hex_colors, legend_html,
-                                safe_text, write_webmap)
+    from ..export.webmap import (K_COLORMAP, TIME_COLORMAP, arrow_svg, attribute_pairs, feature_tooltip,
+                                geojson_text, hex_colors, label_icon, legend_html, table_popup, text_tooltip,
+                                write_webmap)
     from ..quantities import normalize_unit
 
     k_unit = normalize_unit(k_unit, "hydraulic conductivity")
@@ -154,8 +157,10 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
     _unit_members(units, unit)
     out = Path(out)
     folder = Path(surfaces) if surfaces is not None else out.parent
+    L = store.settings.length_unit
+    datum = store.settings.vertical_datum
     per_unit, zones = well_summaries(store, k_unit=k_unit)
-    wells = store.read("wells", ["well_id", "x", "y", "kind", "name"])
+    wells = store.read("wells", ["well_id", "x", "y", "kind", "name", "attrs"])
     wells = wells.merge(per_unit[per_unit["unit"] == unit][["well_id", "k", "n_tests"]], on="well_id", how="left")
     wgs = gpd.GeoDataFrame(wells, geometry=gpd.points_from_xy(wells["x"], wells["y"]), crs=crs).to_crs(4326)
     center = (float(wgs.geometry.y.mean()), float(wgs.geometry.x.mean())) if len(wgs) else (0.0, 0.0)
@@ -166,26 +171,24 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
     layers, legends = [], []
 
     def add_wells(group):
+        header = ["zone", "unit", f"K ({k_unit})", f"latest head ({L} above {datum})", "on"]
         for (_, w), geom, color in zip(wells.iterrows(), wgs.geometry, colors):
             zs = zones[zones["well_id"] == w["well_id"]]
-            rows = "".join(
-                f"<tr><td>{safe_text(z.zone_id)}</td><td>{safe_text(z.unit)}</td>"
-                f"<td>{'' if not np.isfinite(z.k) else f'{z.k:.3g}'}</td>"
-                f"<td>{'' if not np.isfinite(z.latest_head) else f'{z.latest_head:.2f}'}</td>"
-                f"<td>{safe_text(z.latest_head_at)}</td></tr>" for z in zs.itertuples())
-            popup = (f"<b>{safe_text(w['well_id'])}</b> {safe_text(w['name'])}<br>{safe_text(w['kind'])}"
-                     f"<table class='ha-table'><tr><th>zone</th><th>unit</th><th>K ({safe_text(k_unit)})</th>"
-                     f"<th>latest head ({safe_text(store.settings.length_unit)})</th><th>on</th></tr>{rows}</table>")
+            rows = [(z.zone_id, z.unit, f"{z.k:.3g}" if np.isfinite(z.k) else None,
+                     f"{z.latest_head:.2f}" if np.isfinite(z.latest_head) else None, z.latest_head_at)
+                    for z in zs.itertuples()]
+            name = w["name"] if isinstance(w["name"], str) else ""
+            popup = table_popup([f"{w['well_id']} {name}".strip(), w["kind"]], header, rows,
+                                attributes=attribute_pairs(w["attrs"]))
             has_k = np.isfinite(w["k"])
             folium.CircleMarker([geom.y, geom.x], radius=7 if has_k else 4, color="#1d2b36", weight=1,
                                 fill=True, fill_color=color, fill_opacity=0.95,
-                                tooltip=safe_text(w["well_id"]), popup=folium.Popup(popup, max_width=420)
-                                ).add_to(group)
+                                tooltip=text_tooltip(w["well_id"]), popup=popup).add_to(group)
     layers.append((f"Wells: K of {unit}", add_wells))
     if finite.size:
         legends.append(legend_html(f"Geometric-mean K of {unit} per well ({k_unit}, log scale)", lo, hi, K_COLORMAP,
                                    fmt=lambda v: f"{10 ** v:.3g}"))
-    head_tif = folder / f"{unit}_head.tif"
+    head_tif = unit_path(folder, unit, "head.tif")
     if head_tif.is_file():
         grid, head = read_surface(folder, unit, "head", store.location)
         cont = contour_lines(grid, head, _nice_levels(head), crs).to_crs(4326)
@@ -194,11 +197,9 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
             for geom, level in zip(cont.geometry, cont["level"]):
                 coords = [(y, x) for x, y in geom.coords]
                 folium.PolyLine(coords, color="#0b5563", weight=1.5, opacity=0.9,
-                                tooltip=f"head {level:g} {store.settings.length_unit}").add_to(group)
-                mid = coords[len(coords) // 2]
-                folium.Marker(mid, icon=folium.DivIcon(html=f"<div class='ha-label'>{level:g}</div>",
-                                                       icon_size=(40, 14), icon_anchor=(20, 7))).add_to(group)
-        layers.append((f"Head contours of {unit} ({store.settings.length_unit})", add_contours))
+                                tooltip=text_tooltip(f"head {level:g} {L} above {datum}")).add_to(group)
+                folium.Marker(coords[len(coords) // 2], icon=label_icon(f"{level:g}")).add_to(group)
+        layers.append((f"Head contours of {unit} ({L})", add_contours))
         with rasterio.open(head_tif) as src:
             if src.count >= 2:
                 std = src.read(2, masked=True).filled(np.nan)
@@ -223,7 +224,7 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
                         folium.raster_layers.ImageOverlay(image=rgba, bounds=bounds, mercator_project=True,
                                                           opacity=1.0).add_to(group)
                     layers.append((f"Kriging standard deviation of {unit} head", add_std))
-                    legends.append(legend_html(f"Kriging standard deviation ({store.settings.length_unit})",
+                    legends.append(legend_html(f"Kriging standard deviation ({L})",
                                                s0, s1, "Greys"))
     gpkg = folder / "layers.gpkg"
     have = {n for n, _ in pyogrio.list_layers(gpkg)} if gpkg.exists() else set()
@@ -233,7 +234,7 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
 
         def add_arrows(group):
             for geom, az, grad in zip(arrows.geometry, arrows["azimuth"], arrows["gradient"]):
-                folium.Marker([geom.y, geom.x], tooltip=f"flow {az:.0f} deg, gradient {grad:.2g}",
+                folium.Marker([geom.y, geom.x], tooltip=text_tooltip(f"flow {az:.0f} deg, gradient {grad:.2g}"),
                               icon=folium.DivIcon(html=arrow_svg(az), icon_size=(18, 18),
                                                   icon_anchor=(9, 9))).add_to(group)
         if len(arrows):
@@ -247,26 +248,32 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
             for geom, wid, q in zip(pg.geometry, pg["well_id"], pg["rate_m3d"]):
                 folium.CircleMarker([geom.y, geom.x], radius=float(5 + 14 * np.sqrt(q / qmax)), color="#8c2d04",
                                     weight=2, fill=True, fill_color="#fdae6b", fill_opacity=0.6,
-                                    tooltip=f"{safe_text(wid)}: {q:.0f} m3/d").add_to(group)
+                                    tooltip=text_tooltip(f"{wid}: {q:.0f} m3/d")).add_to(group)
         layers.append(("Pumping wells (size by rate)", add_pumping))
     springs = store.read("springs")
     if not springs.empty:
         sg = gpd.GeoDataFrame(springs, geometry=gpd.points_from_xy(springs["x"], springs["y"]), crs=crs).to_crs(4326)
 
         def add_springs(group):
-            for geom, sid, name, elev in zip(sg.geometry, sg["spring_id"], sg["name"], sg["elev"]):
+            for geom, s in zip(sg.geometry, sg.itertuples(index=False)):
                 icon = folium.DivIcon(html=SPRING_SVG, icon_size=(18, 18), icon_anchor=(9, 9))
-                folium.Marker([geom.y, geom.x], icon=icon,
-                              tooltip=f"{safe_text(sid)} {safe_text(name)} ({elev:g})").add_to(group)
+                name = s.name if isinstance(s.name, str) else ""
+                popup = table_popup([f"{s.spring_id} {name}".strip(), f"spring at {s.elev:g} {L} above {datum}"]
+                                    + ([f"issues from unit {s.unit}"] if isinstance(s.unit, str) else []),
+                                    attributes=attribute_pairs(s.attrs))
+                folium.Marker([geom.y, geom.x], icon=icon, popup=popup,
+                              tooltip=text_tooltip(f"{s.spring_id} {name} ({s.elev:g})")).add_to(group)
         layers.append(("Springs", add_springs))
     areas = store.read_geometries("areas")
     rech = areas[areas["kind"] == "recharge"] if not areas.empty else areas
     if not rech.empty:
-        data = geojson_text(rech[["area_id", "kind", "geometry"]])
+        rech = rech.assign(details=["; ".join(f"{k}: {v}" for k, v in attribute_pairs(a)) for a in rech["attrs"]])
+        data = geojson_text(rech[["area_id", "kind", "details", "geometry"]])
 
         def add_recharge(group, data=data):
             folium.GeoJson(data, style_function=lambda f: {"color": "#238b45", "weight": 2, "fillOpacity": 0.15},
-                           tooltip=folium.GeoJsonTooltip(fields=["area_id"], aliases=["recharge area"])).add_to(group)
+                           tooltip=feature_tooltip(["area_id", "details"], ["recharge area", "attributes"])
+                           ).add_to(group)
         layers.append(("Recharge areas", add_recharge))
     if "pathlines" in have:
         pl = pyogrio.read_dataframe(gpkg, layer="pathlines")
@@ -279,7 +286,7 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
             def add_paths(group):
                 for geom, color, yrs, end in zip(pl.geometry, pcol, years, pl["end_kind"]):
                     folium.PolyLine([(y, x) for x, y in geom.coords], color=color, weight=2, opacity=0.85,
-                                    tooltip=f"{yrs:.1f} years, ends at {safe_text(end)}").add_to(group)
+                                    tooltip=text_tooltip(f"{yrs:.1f} years, ends at {end}")).add_to(group)
             layers.append(("Pathlines (colour by travel time)", add_paths))
             legends.append(legend_html("Pathline travel time (years; Darcy, upper bound in karst)", t0, t1,
                                        TIME_COLORMAP))
@@ -292,11 +299,9 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
             def add_ca(group, data=data):
                 folium.GeoJson(data, style_function=lambda f: {"color": "#54278f", "weight": 1.5, "dashArray": "4 3",
                                                                "fillOpacity": 0.08},
-                               tooltip=folium.GeoJsonTooltip(fields=["spring_id"],
-                                                             aliases=["contributing area of"])).add_to(group)
+                               tooltip=feature_tooltip(["spring_id"], ["contributing area of"])).add_to(group)
             layers.append(("Contributing areas", add_ca))
-    dd_tif = folder / f"{unit}_drawdown.tif"
-    if dd_tif.is_file():
+    if unit_path(folder, unit, "drawdown.tif").is_file():
         dgrid, dd = read_surface(folder, unit, "drawdown", store.location)
         levels = [v for v in (0.1, 0.25, 0.5, 1, 2, 5, 10, 20, 50) if np.nanmax(dd) > v]
         dcont = contour_lines(dgrid, dd, levels, crs).to_crs(4326)
@@ -304,12 +309,15 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
         def add_dd(group):
             for geom, level in zip(dcont.geometry, dcont["level"]):
                 folium.PolyLine([(y, x) for x, y in geom.coords], color="#b30000", weight=1.5, dash_array="6 4",
-                                tooltip=f"drawdown {level:g} {store.settings.length_unit}").add_to(group)
+                                tooltip=text_tooltip(f"drawdown {level:g} {L}")).add_to(group)
         if len(dcont):
             layers.append(("Drawdown of the last scenario", add_dd))
     cautions = [CAUTION, KARST_WARNING]
-    return write_webmap(out, title=f"hydroatlas: {unit}", center=center, layers=layers, legends=legends,
-                        cautions=cautions, tiles=tiles)
+    unit_name = units.set_index("code").loc[unit, "name"]
+    title = f"hydroatlas: {unit}" + (f" ({unit_name})" if isinstance(unit_name, str) and unit_name != unit else "")
+    notes = [f"Elevations and heads in {L} above the vertical datum: {datum}"]
+    return write_webmap(out, title=title, center=center, layers=layers, legends=legends, cautions=cautions,
+                        notes=notes, tiles=tiles)
 
 
 def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") -> list[Path]:
@@ -319,8 +327,7 @@ def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") -
     from ..export import figures
     from ..interp import Variogram, crossval
 
-    out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
+    out = ensure_folder(out)
     folder = Path(surfaces) if surfaces is not None else out
     written: list[Path] = []
     units = store.read("units")
@@ -329,7 +336,7 @@ def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") -
         allp = unit_intervals(store, units).merge(units[["code", "role"]].rename(columns={"code": "unit"}),
                                                   on="unit")
         for well, zones in profiles.groupby("well_id"):
-            written += figures.head_profile(out / f"profile_{_file_safe(well)}", well, zones,
+            written += figures.head_profile(output_path(out, f"profile_{file_stem(well)}"), well, zones,
                                             allp[allp["well_id"] == well], pairs[pairs["well_id"] == well],
                                             length_unit=store.settings.length_unit)
     tests = tests_with_units(store)
@@ -342,13 +349,15 @@ def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") -
         rows = [r for r in unit_stats(store, k_unit=k_unit) if r["n_tests"]]
         written += figures.logk_distribution(out / "logk_by_unit", values, rows, k_unit=k_unit)
     for side_path in sorted(folder.glob("*_*.json")):
+        if side_path.name.startswith("."):  # a temporary file of an interrupted writer
+            continue
         side = json.loads(side_path.read_text())
         if "variogram" not in side or "quantity" not in side:
             continue
         v = side["variogram"]
-        stem = side_path.stem
+        stem = file_stem(side_path.stem)
         if v.get("experimental"):
-            written += figures.variogram_fit(out / f"variogram_{stem}", v["experimental"], v,
+            written += figures.variogram_fit(output_path(out, f"variogram_{stem}"), v["experimental"], v,
                                              title=f"{side['unit']} {side['quantity']}")
         xy, z, _, info = surface_points(store, side["unit"], side["quantity"], window=side.get("window"),
                                         at=side.get("at"), lower_unit=side.get("lower_unit"))
@@ -357,16 +366,10 @@ def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") -
         model, _ = make_interpolator(side["method"], xy, z, variogram=v["model"], nugget=vario.nugget,
                                      sill=vario.sill, range_=vario.range, neighbors=side.get("neighbors"))
         cv = crossval.leave_one_out(model, xy, z)
-        written += figures.cross_validation(out / f"crossval_{stem}", z, cv["estimate"], std=cv["std"],
-                                            label=f"{side['unit']} {side['quantity']} ({side['method']})",
-                                            unit=info["value_unit"])
+        written += figures.cross_validation(output_path(out, f"crossval_{stem}"), z, cv["estimate"],
+                                            std=cv["std"], unit=info["value_unit"],
+                                            label=f"{side['unit']} {side['quantity']} ({side['method']})")
     return written
-
-
-def _file_safe(text: str) -> str:
-    import re
-
-    return re.sub(r"[^A-Za-z0-9_.-]+", "_", str(text))[:80] or "well"
 
 
 # -- model grid (SPEC 2.10) ----------------------------------------------------------
@@ -526,8 +529,7 @@ def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=
     # starting heads: the unit's head surface, else the nearest layer that has one
     heads, have = [], []
     for code in layers:
-        tif = folder / f"{code}_head.tif"
-        if tif.is_file():
+        if unit_path(folder, code, "head.tif").is_file():
             grid_s, h = read_surface(folder, code, "head", store.location)
             hv = _sample_grid(grid_s, h, pts).reshape(nrow, ncol)
             heads.append(hv)

@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InsufficientDataError, ParameterError
+from ..export.names import ensure_folder, unit_path, write_csv
 from ..store import Store
 from .store_jobs import CAUTION, _crs_to_m, _length_to_m, _unit_members, unit_stats, zone_assignment
 from .surfaces import read_surface
@@ -81,7 +82,7 @@ def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=N
             raise ParameterError("the head and log-K surfaces of the unit are on different grids; "
                                  "make both with the same --cell")
         k_md = 10.0 ** logk
-        k_info = {"source": "log-K surface", "file": str(folder / f"{unit}_logk.tif")}
+        k_info = {"source": "log-K surface", "file": str(unit_path(folder, unit, "logk.tif"))}
     else:
         row = next(r for r in unit_stats(store, k_unit="m/d") if r["unit"] == unit)
         if row["k_geomean"] is None:
@@ -142,15 +143,12 @@ def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=N
         files["contributing_areas"] = f"{gpkg}:contributing_areas"
     else:
         table = _forward_table(origin, end_label, res.time)
-    csv_path = out / f"{unit}_pathways.csv"
-    table.to_csv(csv_path, index=False)
-    files["table"] = str(csv_path)
+    files["table"] = str(write_csv(unit_path(out, unit, "pathways.csv"), table))
     side = {"unit": unit, "direction": direction, "porosity": porosity, "k": k_info,
             "capture_radius": radius, "max_years": max_years, "n_particles": int(len(seeds)),
-            "head_surface": str(folder / f"{unit}_head.tif"), "integrator": "Dormand-Prince 5(4), adaptive",
+            "head_surface": str(unit_path(folder, unit, "head.tif")), "integrator": "Dormand-Prince 5(4), adaptive",
             "caution": CAUTION, "karst_warning": KARST_WARNING, "files": files}
-    write_sidecar(out / f"{unit}_pathways.json", side)
-    files["sidecar"] = str(out / f"{unit}_pathways.json")
+    files["sidecar"] = str(write_sidecar(unit_path(out, unit, "pathways.json"), side))
     side["table"] = table
     return side
 
@@ -341,10 +339,10 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
                                           S=float(storativity), r_min=well_radius_m)
     s_len = s_m / len_m
     s_len = np.where(np.isfinite(head), s_len, np.nan)
-    out.mkdir(parents=True, exist_ok=True)
-    dd_tif = write_geotiff(out / f"{unit}_drawdown.tif", grid, [s_len], crs=store.settings.crs,
+    out = ensure_folder(out)
+    dd_tif = write_geotiff(unit_path(out, unit, "drawdown.tif"), grid, [s_len], crs=store.settings.crs,
                            descriptions=[f"drawdown ({store.settings.length_unit})"], tags={"caution": CAUTION})
-    hd_tif = write_geotiff(out / f"{unit}_head_drawdown.tif", grid, [head - s_len], crs=store.settings.crs,
+    hd_tif = write_geotiff(unit_path(out, unit, "head_drawdown.tif"), grid, [head - s_len], crs=store.settings.crs,
                            descriptions=[f"head after {days:g} d of pumping ({store.settings.length_unit})"],
                            tags={"caution": CAUTION})
     # springs and monitoring zones of the unit: exact drawdown at their locations
@@ -366,8 +364,7 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
     else:
         points["drawdown"] = []
     impacts = points[points["drawdown"] > threshold].sort_values("drawdown", ascending=False)
-    impacts_csv = out / f"{unit}_drawdown_impacts.csv"
-    impacts.to_csv(impacts_csv, index=False)
+    impacts_csv = write_csv(unit_path(out, unit, "drawdown_impacts.csv"), impacts)
     side = {"unit": unit, "days": days, "storativity": storativity, "transmissivity_m2_per_d": transmissivity,
             "transmissivity": t_info, "wells": pw.to_dict(orient="records"), "rate_unit_of_wells": "m3/d",
             "threshold": threshold, "length_unit": store.settings.length_unit,
@@ -376,7 +373,6 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
             "caution": CAUTION + " Theis assumes a uniform, infinite, confined aquifer; boundaries, leakage and "
                        "karst conduits change real drawdown.",
             "files": {"drawdown": str(dd_tif), "head": str(hd_tif), "impacts": str(impacts_csv)}}
-    write_sidecar(out / f"{unit}_drawdown.json", side)
-    side["files"]["sidecar"] = str(out / f"{unit}_drawdown.json")
+    side["files"]["sidecar"] = str(write_sidecar(unit_path(out, unit, "drawdown.json"), side))
     side["impacts"] = impacts
     return side

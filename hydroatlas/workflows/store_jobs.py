@@ -98,8 +98,23 @@ def check_store(store: Store) -> list[dict]:
     findings = quality.find_issues(
         wells=store.read("wells"), zones=store.read("zones"), picks=store.read("picks"),
         units=store.read("units"), ktests=store.read("ktests", ["well_id", "zone_id", "test_id", "k_ms"]),
-        heads=store.read("heads", ["well_id", "zone_id", "head"]), assignment=asg)
-    for r in store.retired().itertuples():
+        heads=store.read("heads", ["well_id", "zone_id", "head"]), assignment=asg,
+        length_unit=store.settings.length_unit)
+    from ..store.gpkg_sql import geometry_mismatches
+
+    retired = store.retired()
+    for table, key in (("wells", "well_id"), ("springs", "spring_id")):
+        gone = set(retired.loc[retired["table"] == table, "record"])
+        for r in geometry_mismatches(store, table).itertuples():
+            ident = getattr(r, key)
+            if ident in gone:
+                continue
+            findings.append({"kind": "geometry_mismatch", "severity": "error",
+                             "well_id": ident if table == "wells" else None, "zone_id": None, "unit": None,
+                             "message": f"{table} {ident}: the point geometry ({r.geom_x:.6g}, {r.geom_y:.6g}) and "
+                                        f"the x, y columns ({r.x:.6g}, {r.y:.6g}) disagree ({r.problem}); "
+                                        "computations use x, y: re-import the record with the right x, y"})
+    for r in retired.itertuples():
         findings.append({"kind": "retired", "severity": "info", "well_id": None, "zone_id": None, "unit": None,
                          "message": f"{r.table} {r.record} is retired since {r.retired_at} ({r.reason}); "
                                     "left out of every computation, 'hydroatlas restore' brings it back"})

@@ -9,6 +9,7 @@ import pandas as pd
 
 from .. import assign
 from ..errors import InsufficientDataError, ParameterError
+from ..export.names import ensure_folder, unit_path
 from ..store import Store
 from .store_jobs import (
     CAUTION, _crs_to_m, _length_to_m, _unit_members, _window, tests_with_units, unit_stats, zone_assignment,
@@ -182,20 +183,13 @@ def build_surface(store: Store, unit: str, quantity: str, *, method: str = "krig
     if len(z) < needed:
         raise InsufficientDataError(f"{method} needs at least {needed} wells with {quantity} in unit {unit}; "
                                     f"found {len(z)}")
+    domain = _domain_polygons(store, unit)
+    (xmin, ymin, xmax, ymax), cell = grid_extent(xy, None if domain is None else domain.total_bounds, cell,
+                                                 what=f"the {quantity} data of unit {unit}")
     model, minfo = make_interpolator(method, xy, z, variogram=variogram, nugget=nugget, sill=sill, range_=range_,
                                      neighbors=neighbors, fallback_idw=fallback_idw)
     model.fit(xy, z)
     max_cells = max_cells or MAX_CELLS
-    domain = _domain_polygons(store, unit)
-    if domain is not None:
-        xmin, ymin, xmax, ymax = domain.total_bounds
-    else:
-        xmin, ymin = xy.min(axis=0)
-        xmax, ymax = xy.max(axis=0)
-        pad = 0.1 * max(xmax - xmin, ymax - ymin, 1.0)
-        xmin, ymin, xmax, ymax = xmin - pad, ymin - pad, xmax + pad, ymax + pad
-    if cell is None:
-        cell = float(max(xmax - xmin, ymax - ymin) / 200.0)
     grid = GridSpec.from_bounds(xmin, ymin, xmax, ymax, cell, crs=store.settings.crs.to_wkt(), max_cells=max_cells)
     if domain is not None:
         mask = mask_from_polygons(grid, domain.geometry)
@@ -218,14 +212,12 @@ def build_surface(store: Store, unit: str, quantity: str, *, method: str = "krig
             cv[m_name] = crossval.summary(crossval.leave_one_out(alt, xy, z))
         except (InsufficientDataError, ParameterError) as exc:
             cv[m_name] = {"error": str(exc)}
-    out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
-    stem = f"{unit}_{quantity}"
+    out = ensure_folder(out)
     bands = [est] + ([std] if std is not None else [])
     names = [f"{quantity} estimate ({info['value_unit']})"]
     if std is not None:
         names.append("kriging standard deviation")
-    tif = write_geotiff(out / f"{stem}.tif", grid, bands, crs=store.settings.crs, descriptions=names,
+    tif = write_geotiff(unit_path(out, unit, f"{quantity}.tif"), grid, bands, crs=store.settings.crs, descriptions=names,
                         tags={"caution": CAUTION, "quantity": quantity, "unit": unit})
     sidecar = {"unit": unit, "quantity": quantity, "value_unit": info["value_unit"], **minfo,
                "n_points": int(len(z)), "wells": well_ids, "springs_as_heads": info.get("springs_as_heads", []),
@@ -236,9 +228,42 @@ def build_surface(store: Store, unit: str, quantity: str, *, method: str = "krig
                "files": {"raster": str(tif)}}
     if quantity == "head":
         sidecar["files"].update(write_gradients(store, unit, grid, est, out, crs_to_m=crs_to_m))
-    write_sidecar(out / f"{stem}.json", sidecar)
-    sidecar["files"]["sidecar"] = str(out / f"{stem}.json")
+    sidecar["files"]["sidecar"] = str(write_sidecar(unit_path(out, unit, f"{quantity}.json"), sidecar))
     return sidecar
+
+
+def grid_extent(xy, domain_bounds=None, cell: float | None = None, *, what: str = "the data"):
+    """Bounds and cell size of a surface grid: the domain polygon's bounds, else the data's plus a margin.
+
+    Without a domain the margin is a tenth of the data's extent. Data at one
+    location or on one line have no area to grid: without ``cell`` they are
+    refused (any cell size would be arbitrary, e.g. a 20 cm grid of 1 mm
+    cells around a single well); with ``cell`` the margin is at least 50 cells.
+    The automatic cell size is 1/200 of the longer side.
+
+    Returns ((xmin, ymin, xmax, ymax), cell).
+    """
+    from ..interp.grid import auto_cell, spread_rank
+
+    if cell is not None and not (isinstance(cell, (int, float, np.number)) and np.isfinite(cell) and cell > 0):
+        raise ParameterError(f"cell size must be a finite number > 0; got {cell}")
+    if domain_bounds is not None:
+        bounds = tuple(float(v) for v in domain_bounds)
+    else:
+        xmin, ymin = xy.min(axis=0)
+        xmax, ymax = xy.max(axis=0)
+        span = float(max(xmax - xmin, ymax - ymin))
+        if spread_rank(xy) < 2:
+            if cell is None:
+                n = len(np.unique(np.asarray(xy, float), axis=0))
+                where = "at one location" if n < 2 else f"on one line ({n} locations)"
+                raise InsufficientDataError(f"{what} lie {where}; a surface needs at least 3 wells not on one "
+                                            "line, or give a domain area (areas of kind domain) or --cell")
+            pad = max(0.1 * span, 50.0 * cell)
+        else:
+            pad = 0.1 * span
+        bounds = (float(xmin - pad), float(ymin - pad), float(xmax + pad), float(ymax + pad))
+    return bounds, (auto_cell(*bounds) if cell is None else cell)
 
 
 def _domain_polygons(store: Store, unit: str):
@@ -262,7 +287,7 @@ def write_gradients(store: Store, unit: str, grid, head, out, *, crs_to_m: float
 
     mag, az = flow.grid_gradient(head, grid.cell, vertical_per_horizontal=_length_to_m(store) / crs_to_m)
     out = Path(out)
-    tif = write_geotiff(out / f"{unit}_gradient.tif", grid, [mag, az], crs=store.settings.crs,
+    tif = write_geotiff(unit_path(out, unit, "gradient.tif"), grid, [mag, az], crs=store.settings.crs,
                         descriptions=["hydraulic gradient (dimensionless)",
                                       "flow azimuth (degrees clockwise from grid north)"],
                         tags={"caution": CAUTION, "unit": unit})
@@ -309,7 +334,7 @@ def read_surface(folder, unit: str, quantity: str, store_path: str):
 
     from ..interp.grid import GridSpec
 
-    path = Path(folder) / f"{unit}_{quantity}.tif"
+    path = unit_path(folder, unit, f"{quantity}.tif")
     if not path.is_file():
         raise ParameterError(f"no {quantity} surface for unit {unit} in {folder}; make it with "
                              f"'hydroatlas surface {store_path} --unit {unit} --quantity {quantity} --out {folder}'")
