@@ -18,7 +18,7 @@ import pandas as pd
 from . import workflows
 from .errors import HydroatlasError, ParameterError
 from .heads import TimeWindow, parse_instant
-from .quantities import RATE_UNITS, known_units
+from .quantities import CANONICAL as CANONICAL_UNITS, convert
 from .stats import PER_CHOICES
 from .store import open_store
 from .store.importers import KINDS
@@ -33,8 +33,6 @@ DEFAULT_POROSITY = 0.1
 DEFAULT_STORATIVITY = 1e-4
 
 # options shared by several commands, declared once
-k_unit_option = click.option("--k-unit", type=click.Choice(known_units("hydraulic conductivity")), default="m/d",
-                             show_default=True, help="Unit of the K figures.")
 surfaces_option = click.option("--surfaces", default=None, type=click.Path(file_okay=False),
                                help="Folder of the surfaces and layers.gpkg made by 'surface' and 'paths' "
                                     "(default: the output folder).")
@@ -114,6 +112,101 @@ OPEN_FRACTION = Finite(min=0, max=1, min_open=True, max_open=True)  # (0, 1): st
 ANGLE = Finite(min=-360, max=360)
 
 
+class Quantity(click.ParamType):
+    """A number with an optional unit of one quantity, e.g. "2700ft2/d", "250 m2/d", "450gpm", "2ft".
+
+    The number is checked against ``bounds`` (a :class:`Finite`; units only scale, so a bound at 0 holds in any
+    unit) and the unit against the units of ``quantity``. The value stays text: a bare number is in the store's
+    units (:func:`hydroatlas.quantities.store_units`), known once the command opens the store, where
+    :func:`_in_units` turns it into a number.
+    """
+
+    def __init__(self, quantity: str, bounds: Finite = FINITE, *, metavar: str = "VALUE[UNIT]"):
+        self.quantity, self.bounds, self.name = quantity, bounds, metavar
+
+    def check(self, value, label: str):
+        """(number, canonical unit label or None) of ``value``; _OptionError naming ``label`` otherwise."""
+        from .errors import UnitError
+        from .quantities import known_units, split_quantity
+
+        shown = value.strip() if isinstance(value, str) else value
+        try:
+            number, unit = split_quantity(value, self.quantity)
+        except ParameterError:
+            what = self.bounds.describe()
+            what = what if what.startswith("a ") else f"a number {what}"
+            raise _OptionError(f"{label} must be {what}, optionally with a {self.quantity} unit "
+                               f"({', '.join(known_units(self.quantity))}) (got {shown})") from None
+        except UnitError as exc:
+            raise _OptionError(f"{label}: {exc}") from None
+        try:
+            self.bounds.check(number, label)
+        except _OptionError:
+            raise _OptionError(f"{label} must be {self.bounds.describe()} (got {shown})") from None
+        return number, unit
+
+    def convert(self, value, param, ctx):
+        try:
+            self.check(value, _option_label(param))
+        except _OptionError as exc:
+            exc.ctx, exc.param = ctx, param
+            raise
+        return value.strip() if isinstance(value, str) else value
+
+
+class UnitName(click.ParamType):
+    """A unit label of one quantity, any accepted spelling ("gal/d/ft2", "cfs"), given back in its canonical form."""
+
+    name = "UNIT"
+
+    def __init__(self, quantity: str):
+        self.quantity = quantity
+
+    def convert(self, value, param, ctx):
+        from .errors import UnitError
+        from .quantities import normalize_unit
+
+        try:
+            return normalize_unit(value, self.quantity)
+        except UnitError as exc:
+            raise _OptionError(f"{_option_label(param)}: {exc}", ctx=ctx, param=param) from None
+
+
+def _in_units(value, quantity: str, unit: str, *, default_unit: str):
+    """An option value of :class:`Quantity` (or a plain number) in ``unit``; a bare number is in ``default_unit``."""
+    from .quantities import convert, parse_quantity
+
+    if value is None:
+        return None
+    return convert(parse_quantity(value, quantity, default_unit=default_unit), CANONICAL_UNITS[quantity], unit,
+                   quantity)
+
+
+def _store_units(store):
+    from .quantities import store_units
+
+    return store_units(store.settings.length_unit)
+
+
+def _in_crs_units(value, store):
+    """A distance option of :class:`Quantity` in the store CRS's units; a bare number is in CRS units already."""
+    from .quantities import factor, split_quantity
+
+    if value is None:
+        return None
+    number, unit = split_quantity(value, "length")
+    crs = store.settings.crs
+    if unit is None or not crs.is_projected:  # a geographic CRS is refused by the commands that need distances
+        return number
+    return number * factor(unit, "length") / float(crs.axis_info[0].unit_conversion_factor)
+
+
+# --k-unit of stats, map, layers and figures (declared here, after its type)
+k_unit_option = click.option("--k-unit", type=UnitName("hydraulic conductivity"), default=None,
+                             help="Unit of the K figures: m/s, m/d, cm/s, ft/d or gpd/ft2 (gal/d/ft2) "
+                                  "(default: the store's, ft/d in a feet store, m/d in a metre store).")
+
+
 class _Pair(click.ParamType):
     """Two comma-separated numbers, each checked by a :class:`Finite`, e.g. X,Y or ROWS,COLS."""
 
@@ -170,6 +263,71 @@ def _date_value(ctx, param, value):
         except ParameterError as exc:
             raise _OptionError(str(exc), ctx=ctx, param=param) from None
     return value
+
+
+# -- the selection policy: one set of options for every command that selects K tests or heads -------------------
+def _well_ids(values) -> tuple[str, ...]:
+    """Well ids from one or more comma-separated texts (``--exclude-wells W1,W2 --exclude-wells W3``)."""
+    if isinstance(values, str):
+        values = (values,)
+    return tuple(w for text in (values or ()) for w in str(text).split(","))
+
+
+def _wells_value(ctx, param, value):
+    """Click callback: --exclude-wells ID,ID (no empty id); the ids are checked against the store later."""
+    from .selection import SelectionPolicy
+
+    try:
+        SelectionPolicy(exclude_wells=_well_ids(value))
+    except ParameterError as exc:
+        raise _OptionError(str(exc), ctx=ctx, param=param) from None
+    return value
+
+
+def _policy(include_poor: bool, include_pumping_wells: bool, exclude_wells):
+    """The :class:`hydroatlas.selection.SelectionPolicy` of the options of :func:`selection_options`."""
+    from .selection import SelectionPolicy
+
+    return SelectionPolicy(include_poor=bool(include_poor), include_pumping_wells=bool(include_pumping_wells),
+                           exclude_wells=_well_ids(exclude_wells))
+
+
+def selection_options(f):
+    """--include-poor, --include-pumping-wells and --exclude-wells, declared once for every command that selects
+    K tests or head readings (see :mod:`hydroatlas.selection`)."""
+    f = click.option("--exclude-wells", "exclude_wells", multiple=True, metavar="ID,ID", callback=_wells_value,
+                     help="Leave these wells out of every K test and head selection (comma separated, may be "
+                          "repeated); an unknown id is an error.")(f)
+    f = click.option("--include-pumping-wells", is_flag=True,
+                     help="Keep water levels in wells of kind pumping or supply, and readings taken while a "
+                          "pumping record of the zone or well was active (left out of heads by default: such a "
+                          "level is the regional head minus the cone and the well loss).")(f)
+    f = click.option("--include-poor", is_flag=True,
+                     help="Keep K tests and head readings of quality 'poor' (left out by default).")(f)
+    return f
+
+
+def tolerance_option(f):
+    """--tolerance DAYS, beside --at: how far a reading may lie from the date."""
+    return click.option("--tolerance", "tolerance", type=Quantity("time", NON_NEGATIVE), default="31",
+                        show_default=True,
+                        help="With --at: use a zone's nearest reading only if it lies within this many days "
+                             "(or with a unit: 48h, 2d); zones without one are left out, counted, with a "
+                             "warning.")(f)
+
+
+def _tolerance_days(value) -> float:
+    return float(_in_units(value, "time", "d", default_unit="d"))
+
+
+def _say_selection(selection: dict | None, only: str | None = None) -> None:
+    """What a selection left out, on stderr: one note per kind of record ("heads" or "ktests"; ``only`` keeps
+    one kind), and a warning for zones without a reading near --at."""
+    from .selection import describe
+
+    entries = [e for e in (selection or {}).get("left_out") or [] if only is None or e["what"] == only]
+    for level, text in describe(entries):
+        click.echo(f"{level}: {text}", err=True)
 
 
 class _Group(click.Group):
@@ -318,23 +476,32 @@ def check(store, as_json):
               help="What counts once: every test, the log-mean of each zone, or of each well.")
 @click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
 @click.option("--exclude-straddles", is_flag=True, help="Leave out zones that cross units.")
-@click.option("--exclude-poor", is_flag=True, help="Leave out tests of quality 'poor'.")
+@click.option("--exclude-poor", is_flag=True,
+              help="Leave out tests of quality 'poor'. This is now the default (kept so that old scripts work); "
+                   "--include-poor brings them back.")
 @click.option("--wells", "by_well", is_flag=True,
               help="Per-well transmissivity and effective K_h / K_v instead of unit statistics.")
-def stats(store, unit, k_unit, per, fmt, exclude_straddles, exclude_poor, by_well):
+@selection_options
+def stats(store, unit, k_unit, per, fmt, exclude_straddles, exclude_poor, by_well, include_poor,
+          include_pumping_wells, exclude_wells):
     """Hydraulic-conductivity statistics per unit (geometric mean, log variance, 95 % CI).
 
-    Variances are sample variances (ddof = 1) of log10 K and ln K.
+    Variances are sample variances (ddof = 1) of log10 K and ln K. Tests of quality
+    poor and tests in wells given to --exclude-wells are left out: n_left_out counts
+    them per unit, and a note on stderr says how many and why.
 
     Example: hydroatlas stats district.gpkg --per zone --k-unit ft/d --format json
     """
+    policy = _policy(include_poor, include_pumping_wells, exclude_wells)
     with open_store(store) as s:
         if by_well:
-            frame = workflows.well_profiles(s, k_unit=k_unit, unit=unit, exclude_poor=exclude_poor)
+            frame = workflows.well_profiles(s, k_unit=k_unit, unit=unit, exclude_poor=exclude_poor, policy=policy)
+            _say_selection(frame.attrs.get("selection"))
             _emit(frame, fmt)
             return
         rows = workflows.unit_stats(s, unit=unit, per=per, k_unit=k_unit, exclude_straddles=exclude_straddles,
-                                    exclude_poor=exclude_poor)
+                                    exclude_poor=exclude_poor, policy=policy)
+    _say_selection(getattr(rows, "selection", None))
     if fmt == "json":
         _emit(pd.DataFrame(), "json", rows)
         return
@@ -345,8 +512,8 @@ def stats(store, unit, k_unit, per, fmt, exclude_straddles, exclude_poor, by_wel
         frame["ci95"] = [("-" if v is None or v[0] is None or not math.isfinite(v[0])
                           else f"{v[0]:.3g}-{v[1]:.3g}") for v in frame["k_geomean_ci95"]]
         frame = frame[["unit", "role", "n_tests", "n_zones", "n_wells", "k_geomean", "ci95", "k_median",
-                       "k_min", "k_max", "log10k_mean", "log10k_std", "lnk_var"]]
-        click.echo(f"K in {k_unit}; statistics per {per}")
+                       "k_min", "k_max", "log10k_mean", "log10k_std", "lnk_var", "n_left_out"]]
+        click.echo(f"K in {rows[0]['k_unit']} (log10 K of K in {rows[0]['k_unit']}); statistics per {per}")
     else:
         lo_hi = frame.pop("k_geomean_ci95")
         frame["k_geomean_ci95_low"] = [v[0] if v else None for v in lo_hi]
@@ -360,9 +527,11 @@ def stats(store, unit, k_unit, per, fmt, exclude_straddles, exclude_poor, by_wel
               help="ISO 8601 interval FROM/TO: median head of each zone inside it.")
 @click.option("--at", default=None, callback=_date_value,
               help="Date: the reading nearest to it, per zone (instead of --window).")
+@tolerance_option
 @click.option("--profiles", is_flag=True, help="Print the head profile of each multi-zone well instead of pairs.")
 @click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
-def verticals(store, window, at, profiles, fmt):
+@selection_options
+def verticals(store, window, at, tolerance, profiles, fmt, include_poor, include_pumping_wells, exclude_wells):
     """Head differences, vertical gradients and aquitard leakage at multi-zone wells.
 
     One row per pair of successive zones (top down): dhead is the upper head minus
@@ -374,7 +543,9 @@ def verticals(store, window, at, profiles, fmt):
     Example: hydroatlas verticals district.gpkg --window 2024-03-01/2024-03-31 --format json
     """
     with open_store(store) as s:
-        pairs, prof = workflows.verticals(s, window=window, at=at)
+        pairs, prof = workflows.verticals(s, window=window, at=at, tolerance_days=_tolerance_days(tolerance),
+                                          policy=_policy(include_poor, include_pumping_wells, exclude_wells))
+    _say_selection(pairs.attrs.get("selection"), only="heads")  # the K tests only set the leakage K
     frame = prof if profiles else pairs
     _emit(frame, fmt)
 
@@ -383,12 +554,14 @@ def verticals(store, window, at, profiles, fmt):
 @click.argument("store")
 @click.option("--unit", required=True, help="Unit code.")
 @click.option("--quantity", type=click.Choice(workflows.QUANTITIES), default="head", show_default=True,
-              help="head, logk (log10 K in m/d) or dhead (head minus the head of the unit below).")
+              help="head, logk (log10 K in the store's K unit: ft/d or m/d) or dhead (head minus the head of "
+                   "the unit below).")
 @click.option("--method", type=click.Choice(workflows.METHODS), default="kriging", show_default=True,
               help="kriging (ordinary), uk (universal, linear drift) or idw.")
 @click.option("--window", default=None, callback=_window_value,
               help="ISO 8601 interval FROM/TO for heads (median per zone).")
 @click.option("--at", default=None, callback=_date_value, help="Date: the head reading nearest to it, per zone.")
+@tolerance_option
 @click.option("--cell", type=POSITIVE, default=None, help="Cell size in CRS units (default: 1/200 of the extent).")
 @click.option("--variogram", type=click.Choice(["spherical", "exponential", "gaussian"]), default="spherical",
               show_default=True, help="Variogram model, fitted by weighted least squares unless fixed.")
@@ -397,13 +570,17 @@ def verticals(store, window, at, profiles, fmt):
 @click.option("--range", "range_", type=POSITIVE, default=None, help="Fix the practical range (with --sill).")
 @click.option("--neighbors", type=Finite(min=0, integer=True), default=None,
               help="Nearest points per cell; 0 = all (one global system). Default: all up to 400 points, else 16.")
-@click.option("--lower-unit", default=None, help="For dhead: the unit whose head is subtracted (default: next below).")
-@click.option("--buffer", type=POSITIVE, default=None, help="Mask distance around the data when no domain polygon.")
+@click.option("--lower-unit", default=None,
+              help="For dhead: the unit whose head is subtracted (default: the next aquifer below, across any "
+                   "aquitard or confining unit; the sidecar names it).")
+@click.option("--buffer", type=Quantity("length", POSITIVE), default=None,
+              help="Mask distance around the data when no domain polygon (CRS units, or a length with its unit).")
 @click.option("--fallback-idw", is_flag=True, help="Use IDW when no variogram can be fitted (all values equal).")
 @click.option("--max-cells", type=COUNT, default=None, help="Refuse grids larger than this (default 50,000,000).")
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False), help="Output folder.")
-def surface(store, unit, quantity, method, window, at, cell, variogram, nugget, sill, range_, neighbors,
-            lower_unit, buffer, fallback_idw, max_cells, out):
+@selection_options
+def surface(store, unit, quantity, method, window, at, tolerance, cell, variogram, nugget, sill, range_, neighbors,
+            lower_unit, buffer, fallback_idw, max_cells, out, include_poor, include_pumping_wells, exclude_wells):
     """Interpolate head, log K or head difference of one unit onto a grid.
 
     Writes OUT/<unit>_<quantity>.tif (band 1 estimate, band 2 kriging standard
@@ -424,9 +601,11 @@ def surface(store, unit, quantity, method, window, at, cell, variogram, nugget, 
         result = workflows.build_surface(s, unit, quantity, method=method, window=window, at=at, cell=cell,
                                          variogram=variogram, nugget=nugget, sill=sill, range_=range_,
                                          neighbors="auto" if neighbors is None else (neighbors or None),
-                                         buffer=buffer, out=out,
+                                         buffer=_in_crs_units(buffer, s), out=out,
                                          fallback_idw=fallback_idw, max_cells=max_cells, lower_unit=lower_unit,
-                                         progress=bar.update)
+                                         progress=bar.update, tolerance_days=_tolerance_days(tolerance),
+                                         policy=_policy(include_poor, include_pumping_wells, exclude_wells))
+    _say_selection(result.get("selection"))
     cv = result["cross_validation"].get(result["selected_method"], {})
     click.echo(f"{unit} {quantity} by {result['selected_method']} from {result['n_points']} wells; "
                f"leave-one-out RMSE {cv.get('rmse', float('nan')):.4g} {result['value_unit']}")
@@ -440,18 +619,23 @@ def surface(store, unit, quantity, method, window, at, cell, variogram, nugget, 
 @click.option("--wells", required=True, help="Three well ids, comma separated.")
 @click.option("--window", default=None, callback=_window_value, help="ISO 8601 interval FROM/TO for heads.")
 @click.option("--at", default=None, callback=_date_value, help="Date: the reading nearest to it.")
+@tolerance_option
 @click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
-def threepoint(store, unit, wells, window, at, fmt):
+@selection_options
+def threepoint(store, unit, wells, window, at, tolerance, fmt, include_poor, include_pumping_wells, exclude_wells):
     """Hydraulic gradient and flow direction from the heads of three wells (plane through three points).
 
     Example: hydroatlas threepoint district.gpkg --unit ULS --wells W1,W2,W3
     """
     with open_store(store) as s:
-        res = workflows.three_point_wells(s, unit, [w.strip() for w in wells.split(",")], window=window, at=at)
+        res = workflows.three_point_wells(s, unit, [w.strip() for w in wells.split(",")], window=window, at=at,
+                                          tolerance_days=_tolerance_days(tolerance),
+                                          policy=_policy(include_poor, include_pumping_wells, exclude_wells))
+    _say_selection(res.get("selection"), only="heads")
     if fmt == "json":
         _emit(pd.DataFrame(), "json", res)
     else:
-        _emit(pd.DataFrame([{k: v for k, v in res.items() if k not in ("wells", "heads")}]), fmt)
+        _emit(pd.DataFrame([{k: v for k, v in res.items() if k not in ("wells", "heads", "selection")}]), fmt)
 
 
 @main.command()
@@ -464,19 +648,33 @@ def threepoint(store, unit, wells, window, at, fmt):
 @click.option("--k-source", type=click.Choice(["mean", "surface"]), default="mean", show_default=True,
               help="K from the unit's geometric mean or from its log-K surface.")
 @surfaces_option
-@click.option("--seed-spacing", type=POSITIVE, default=None, help="Spacing of seeds in recharge areas (CRS units).")
-@click.option("--capture-radius", type=POSITIVE, default=None, help="Particles end within this of a spring or "
-              "pumping well (default: 2 cells).")
-@click.option("--max-years", type=POSITIVE, default=1000.0, show_default=True, help="Longest travel time tracked.")
+@click.option("--seed-spacing", type=Quantity("length", POSITIVE), default=None,
+              help="Spacing of seeds in recharge areas (CRS units, or a length with its unit, e.g. 100ft).")
+@click.option("--capture-radius", type=Quantity("length", POSITIVE), default=None,
+              help="Particles end within this of any spring or pumping well (CRS units, or a length with its "
+                   "unit, e.g. 50m; default: each sink's stagnation distance Q / (2 pi b K i), Javandel and "
+                   "Tsang 1986, kept between a quarter cell and a quarter of the grid; 2 cells for a spring "
+                   "without discharge readings).")
+@click.option("--scenario", default=None,
+              help="Trace on the head surface of the drawdown scenario NAME ('drawdown --name NAME', files "
+                   "<unit>_head_<NAME>.tif and <unit>_drawdown_<NAME>.json in the surfaces folder), with its "
+                   "proposed wells as sinks.")
+@click.option("--max-years", type=Quantity("time", POSITIVE), default=1000.0, show_default=True,
+              help="Longest travel time tracked, in years (or with a time unit, e.g. 500d).")
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False), help="Output folder.")
-def paths(store, unit, porosity, backward, k_source, surfaces, seed_spacing, capture_radius, max_years, out):
+@selection_options
+def paths(store, unit, porosity, backward, k_source, surfaces, seed_spacing, capture_radius, scenario, max_years,
+          out, include_poor, include_pumping_wells, exclude_wells):
     """Likely pathways from recharge areas to springs, pumping wells or the domain edge.
 
     Particles move with the Darcy seepage velocity v = K i / n_e on the unit's head
     surface (made by 'hydroatlas surface --quantity head'), integrated by an adaptive
     Dormand-Prince 5(4) scheme. Forward: seeds over each recharge area. --backward:
-    paths from each spring and its contributing area. Writes the pathlines (and
-    contributing_areas) layers of OUT/layers.gpkg and OUT/<unit>_pathways.csv.
+    paths from each spring and its contributing area. Sinks are the springs and the
+    wells pumping at the end of the head window (stopped wells are not sinks), each
+    capturing within its stagnation distance. Writes the pathlines (and
+    contributing_areas) layers of OUT/layers.gpkg and OUT/<unit>_pathways.csv
+    (backward: OUT/<unit>_pathways_backward.csv; --scenario NAME adds _NAME).
 
     Caution: results are screening-level estimates for planning and model set-up,
     not a substitute for site-specific investigation or for the judgement of a
@@ -492,9 +690,16 @@ def paths(store, unit, porosity, backward, k_source, surfaces, seed_spacing, cap
         click.echo(f"warning: --porosity not given; using n_e = {DEFAULT_POROSITY} (travel times scale with n_e: "
                    "give the effective porosity of your unit)", err=True)
     with open_store(store) as s:
+        seed_spacing = _in_crs_units(seed_spacing, s)
+        capture_radius = _in_crs_units(capture_radius, s)
+        max_years = _in_units(max_years, "time", "yr", default_unit="yr")
         result = workflows.trace_paths(s, unit, porosity=porosity, out=out, surfaces=surfaces, backward=backward,
                                        k_source=k_source, seed_spacing=seed_spacing, capture_radius=capture_radius,
-                                       max_years=max_years)
+                                       max_years=max_years, scenario=scenario,
+                                       policy=_policy(include_poor, include_pumping_wells, exclude_wells))
+    for line in result.get("warnings", []):
+        click.echo(f"warning: {line}", err=True)
+    _say_selection(result.get("selection"))
     click.echo(f"{result['n_particles']} particles tracked {result['direction']} on the {unit} head surface")
     click.echo(result["table"].to_string(index=False, float_format=lambda v: f"{v:.4g}"))
     click.echo(f"Caution: {workflows.KARST_WARNING}")
@@ -502,27 +707,56 @@ def paths(store, unit, porosity, backward, k_source, surfaces, seed_spacing, cap
         click.echo(f"  {kind}: {path}")
 
 
-def _parse_rates(values):
+RATE = Quantity("rate", FINITE, metavar="Q[UNIT]")
+
+
+class _RateUnitError(_OptionError):
+    """A rate whose number is fine but whose unit is unknown (said as such, not as a malformed item)."""
+
+
+def _rate_m3d(q, label: str, rate_unit: str) -> float:
+    """A rate typed in an option (e.g. "450gpm", "0.5 cfs", "2000") in m3/d; a bare number is in ``rate_unit``."""
+    from .errors import UnitError
+    from .quantities import factor, split_quantity
+
+    try:
+        split_quantity(q, "rate")
+    except UnitError as exc:
+        raise _RateUnitError(f"{label}: {exc}") from None
+    except ParameterError:
+        pass  # not a number: RATE.check says so
+    number, unit = RATE.check(q, label)
+    return number * factor(unit or rate_unit, "rate")
+
+
+def _parse_rates(values, rate_unit: str = "m3/d"):
+    """WELL=Q items as {well: rate in m3/d}; Q may carry a rate unit, a bare Q is in ``rate_unit``."""
     out = {}
     for item in values:
         wid, sep, q = item.partition("=")
         try:
             if not (sep and wid.strip()):
                 raise ValueError
-            out[wid.strip()] = FINITE.check(q, "--rate")
+            out[wid.strip()] = _rate_m3d(q, "--rate", rate_unit)
+        except _RateUnitError:
+            raise
         except (ValueError, _OptionError):
             raise _OptionError(f"--rate must be WELL=Q with Q a finite number (got {item})") from None
     return out
 
 
-def _parse_new_wells(values):
+def _parse_new_wells(values, rate_unit: str = "m3/d"):
+    """[NAME,]X,Y,Q items as (name, x, y, rate in m3/d); X, Y in the store CRS, Q as in :func:`_parse_rates`."""
     out = []
     for n, item in enumerate(values, start=1):
         parts = item.split(",")
         try:
             if len(parts) not in (3, 4):
                 raise ValueError
-            x, y, q = (FINITE.check(p, "--new-well") for p in parts[-3:])
+            x, y = (FINITE.check(p, "--new-well") for p in parts[-3:-1])
+            q = _rate_m3d(parts[-1], "--new-well", rate_unit)
+        except _RateUnitError:
+            raise
         except (ValueError, _OptionError):
             raise _OptionError(f"--new-well must be [NAME,]X,Y,Q with X, Y, Q finite numbers "
                                f"(got {item})") from None
@@ -534,29 +768,54 @@ def _parse_new_wells(values):
 @main.command()
 @click.argument("store")
 @click.option("--unit", required=True, help="Unit code (its head surface must exist).")
-@click.option("--days", type=POSITIVE, required=True, help="Pumping duration in days.")
+@click.option("--days", type=Quantity("time", POSITIVE), required=True,
+              help="Pumping duration: days, or a number with a time unit (s, min, h, d, yr; e.g. 1yr).")
 @click.option("--storativity", "-S", type=OPEN_FRACTION, default=None,
               help=f"Storage coefficient S, in (0, 1) (default {DEFAULT_STORATIVITY}, a confined aquifer, "
                    "with a warning).")
 @click.option("--rate", "rates", multiple=True, type=_Checked(lambda v: _parse_rates(v)),
-              help="WELL=Q: rate of a stored well (replaces its stored rate).")
+              help="WELL=Q: rate of a stored well (replaces its stored rate); Q may name its unit "
+                   "(PW-1=450gpm, PW-2=0.5cfs).")
 @click.option("--new-well", "new_wells", multiple=True, type=_Checked(lambda v: _parse_new_wells(v)),
-              help="[NAME,]X,Y,Q: a proposed well (store CRS).")
-@click.option("--rate-unit", type=click.Choice(list(RATE_UNITS)), default="m3/d", show_default=True)
-@click.option("--transmissivity", "-T", type=POSITIVE, default=None,
-              help="T in m2/d (default: the unit's geometric-mean K times its mean thickness).")
-@click.option("--threshold", type=NON_NEGATIVE, default=0.5, show_default=True,
-              help="List springs and monitoring zones losing more head than this (store length unit).")
+              help="[NAME,]X,Y,Q: a proposed well (X, Y in the store CRS; Q may name its unit, e.g. 450gpm).")
+@click.option("--rate-unit", type=UnitName("rate"), default=None,
+              help="Unit of rates given without one in --rate and --new-well: m3/d, m3/s, L/s, gpm, gpd, MGD, "
+                   "ft3/d, ft3/s (cfs), acre-ft/yr (default: the store's, ft3/d or m3/d).")
+@click.option("--transmissivity", "-T", type=Quantity("transmissivity", POSITIVE), default=None,
+              help="T, e.g. 2700ft2/d, '250 m2/d' or 20000gpd/ft; a bare number is in the store's length unit "
+                   "squared per day (default: the unit's geometric-mean K times its thickness).")
+@click.option("--threshold", type=Quantity("length", NON_NEGATIVE), default=0.5, show_default=True,
+              help="List springs and monitoring zones losing more head than this, e.g. 2ft (a bare number is "
+                   "in the store's length unit).")
+@click.option("--name", default=None,
+              help="Scenario name: outputs OUT/<unit>_drawdown_<name>.tif, OUT/<unit>_head_<name>.tif, "
+                   "OUT/<unit>_drawdown_<name>_impacts.csv and .json, which 'paths --scenario NAME' traces on.")
+@click.option("--from-unpumped", is_flag=True,
+              help="Total drawdown of all pumping (baseline wells at their rates plus the scenario) on the head "
+                   "surface adjusted to unpumped conditions by adding back the baseline wells' Theis drawdown at "
+                   "the end of the head window.")
 @surfaces_option
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False), help="Output folder.")
-def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transmissivity, threshold, surfaces, out):
-    """Theis drawdown of the unit's pumping wells, superposed on its head surface.
+@selection_options
+def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transmissivity, threshold, surfaces, out,
+             name, from_unpumped, include_poor, include_pumping_wells, exclude_wells):
+    """Theis drawdown of a pumping scenario, superposed on the unit's head surface.
 
-    Uses the stored current pumping rates (records without an end date) of wells
-    screened in the unit, changed or added with --rate and --new-well. Writes
-    OUT/<unit>_drawdown.tif, OUT/<unit>_head_drawdown.tif (head minus drawdown),
-    OUT/<unit>_drawdown_impacts.csv (springs and monitoring zones above the
-    threshold) and a JSON sidecar.
+    The baseline: measured heads already hold the cones of the wells that pumped
+    during the head window of the surface (pumping records of the unit active
+    in that window, at their rates at its end). By default the result is the
+    change the scenario makes against that baseline: proposed wells (--new-well)
+    and changed rates (--rate WELL=Q) add drawdown, stopped wells (--rate WELL=0)
+    give recovery (negative drawdown), unchanged baseline wells add nothing.
+    --from-unpumped gives the total drawdown of all pumping instead, on the head
+    surface adjusted to unpumped conditions (the baseline wells' Theis drawdown
+    at the end of the head window added back). T is the unit's geometric-mean K
+    times its thickness at each well, from wells that penetrate the unit fully.
+    Writes OUT/<unit>_drawdown.tif, OUT/<unit>_head_drawdown.tif (head after the
+    scenario), OUT/<unit>_drawdown_impacts.csv (springs and monitoring zones
+    above the threshold or taken below the unit's top or bottom) and a JSON
+    sidecar with the head window, the baseline wells and the changes; with
+    --name NAME the files carry the name.
 
     Caution: results are screening-level estimates for planning and model set-up,
     not a substitute for site-specific investigation or for the judgement of a
@@ -571,12 +830,30 @@ def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transm
         click.echo(f"warning: --storativity not given; using S = {DEFAULT_STORATIVITY} (typical of a confined "
                    "aquifer; an unconfined one is nearer 0.01-0.3: give the value for your unit)", err=True)
     with open_store(store) as s:
-        res = workflows.drawdown_scenario(s, unit, days=days, storativity=storativity, rates=_parse_rates(rates),
-                                          new_wells=_parse_new_wells(new_wells), rate_unit=rate_unit,
+        su = _store_units(s)  # a bare number is in the store's units; rates in --rate-unit when given
+        days = _in_units(days, "time", "d", default_unit="d")
+        transmissivity = _in_units(transmissivity, "transmissivity", "m2/d", default_unit=su.transmissivity)
+        threshold = _in_units(threshold, "length", su.length, default_unit=su.length)
+        q_unit = rate_unit or su.rate
+        res = workflows.drawdown_scenario(s, unit, days=days, storativity=storativity,
+                                          rates=_parse_rates(rates, q_unit),
+                                          new_wells=_parse_new_wells(new_wells, q_unit), rate_unit="m3/d",
                                           transmissivity=transmissivity, surfaces=surfaces, out=out,
-                                          threshold=threshold)
-    click.echo(f"{len(res['wells'])} pumping wells, {days:g} d, T = {res['transmissivity_m2_per_d']:.4g} m2/d, "
-               f"S = {storativity:g}; largest drawdown {res['max_drawdown']:.3g} {res['length_unit']}")
+                                          threshold=threshold, name=name, from_unpumped=from_unpumped,
+                                          policy=_policy(include_poor, include_pumping_wells, exclude_wells))
+    _say_selection(res.get("selection"))
+    for line in res.get("warnings", []):
+        click.echo(f"warning: {line}", err=True)
+    base = res["baseline"]
+    click.echo(f"{res['mode']}: {len(base['wells'])} baseline wells pumping in the head window "
+               f"{base['head_window']['text']}, {len(res['changes'])} changes")
+    t_m2d = res["transmissivity_m2_per_d"]
+    t_text = (f"{convert(t_m2d, 'm2/d', su.transmissivity, 'transmissivity'):.4g} {su.transmissivity}"
+              + (f" ({t_m2d:.4g} m2/d)" if su.transmissivity != "m2/d" else ""))
+    click.echo(f"{days:g} d, T = {t_text}, "
+               f"S = {storativity:g}; largest drawdown {res['max_drawdown']:.3g} {res['length_unit']}"
+               + (f", largest recovery {-res['min_drawdown']:.3g} {res['length_unit']}"
+                  if (res["min_drawdown"] or 0) < 0 else ""))
     imp = res["impacts"]
     if imp.empty:
         click.echo(f"no spring or monitoring zone loses more than {threshold:g} {res['length_unit']}")
@@ -589,12 +866,15 @@ def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transm
 
 @main.command(name="map")
 @click.argument("store")
-@click.option("--unit", default=None, help="Unit whose K, head contours and results are shown (default: top aquifer).")
+@click.option("--unit", default=None,
+              help="Unit whose K, head contours, extent and results are shown (default: the aquifer with the most "
+                   "zones with heads).")
 @k_unit_option
 @surfaces_option
 @click.option("--tiles", default=None, help="Basemap URL template (needs internet); none by default.")
 @click.option("--out", default="map.html", show_default=True, type=click.Path(dir_okay=False))
-def map_(store, unit, k_unit, surfaces, tiles, out):
+@selection_options
+def map_(store, unit, k_unit, surfaces, tiles, out, include_poor, include_pumping_wells, exclude_wells):
     """One self-contained HTML web map that works offline.
 
     Wells coloured by K, head contours, flow arrows, kriging standard deviation,
@@ -607,7 +887,8 @@ def map_(store, unit, k_unit, surfaces, tiles, out):
     pumping are governed by local rules and permits.
     """
     with open_store(store) as s:
-        path = workflows.build_map(s, unit=unit, out=out, surfaces=surfaces, k_unit=k_unit, tiles=tiles)
+        path = workflows.build_map(s, unit=unit, out=out, surfaces=surfaces, k_unit=k_unit, tiles=tiles,
+                                   policy=_policy(include_poor, include_pumping_wells, exclude_wells))
     click.echo(f"map: {path}")
 
 
@@ -616,14 +897,16 @@ def map_(store, unit, k_unit, surfaces, tiles, out):
 @k_unit_option
 @surfaces_option
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False))
-def layers(store, k_unit, surfaces, out):
+@selection_options
+def layers(store, k_unit, surfaces, out, include_poor, include_pumping_wells, exclude_wells):
     """Vector layers to OUT/layers.gpkg and OUT/geojson/*.geojson (RFC 7946, WGS 84).
 
     wells (with per-unit K columns), zones (points at mid-depth), head contours, and
     the flow arrows, pathlines and contributing areas made by 'surface' and 'paths'.
     """
     with open_store(store) as s:
-        files = workflows.export_layers(s, out=out, surfaces=surfaces, k_unit=k_unit)
+        files = workflows.export_layers(s, out=out, surfaces=surfaces, k_unit=k_unit,
+                                        policy=_policy(include_poor, include_pumping_wells, exclude_wells))
     for kind, path in files.items():
         click.echo(f"  {kind}: {path}")
 
@@ -633,12 +916,14 @@ def layers(store, k_unit, surfaces, out):
 @k_unit_option
 @surfaces_option
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False))
-def figures(store, k_unit, surfaces, out):
+@selection_options
+def figures(store, k_unit, surfaces, out, include_poor, include_pumping_wells, exclude_wells):
     """PNG and SVG figures: head against elevation at each multi-zone well (units as bands, head
     difference across each aquitard), log10 K per unit with the geometric mean and its 95 % CI,
     fitted over experimental variograms, and leave-one-out cross-validation of each surface."""
     with open_store(store) as s:
-        files = workflows.make_figures(s, out=out, surfaces=surfaces, k_unit=k_unit)
+        files = workflows.make_figures(s, out=out, surfaces=surfaces, k_unit=k_unit,
+                                       policy=_policy(include_poor, include_pumping_wells, exclude_wells))
     click.echo(f"{len(files)} files in {out}")
 
 
@@ -654,12 +939,14 @@ def figures(store, k_unit, surfaces, out):
 @click.option("--layers", default=None, help="Unit codes, top first, comma separated (default: all picked units).")
 @click.option("--kv-ratio", type=POSITIVE, default=10.0, show_default=True, help="K_h / K_v of aquifer layers.")
 @click.option("--k-source", type=click.Choice(["mean", "surface"]), default="mean", show_default=True)
-@click.option("--min-thickness", type=POSITIVE, default=1.0, show_default=True,
-              help="Smallest layer thickness (store length unit).")
+@click.option("--min-thickness", type=Quantity("length", POSITIVE), default=1.0, show_default=True,
+              help="Smallest layer thickness (store length unit, or a length with its unit, e.g. 0.5m).")
 @surfaces_option
 @click.option("--max-cells", type=COUNT, default=None, help="Refuse grids larger than this (default 20,000,000).")
 @click.option("--out", default="model.nc", show_default=True, type=click.Path(dir_okay=False))
-def grid(store, cell, origin, shape, rotation, layers, kv_ratio, k_source, min_thickness, surfaces, max_cells, out):
+@selection_options
+def grid(store, cell, origin, shape, rotation, layers, kv_ratio, k_source, min_thickness, surfaces, max_cells, out,
+         include_poor, include_pumping_wells, exclude_wells):
     """Model-ready grid: one layer per unit with top, bottom, K_h, K_v and starting heads.
 
     Writes FILE.nc (NetCDF, CF-1.8), a folder FILE_arrays/ with one .npy and one
@@ -673,10 +960,14 @@ def grid(store, cell, origin, shape, rotation, layers, kv_ratio, k_source, min_t
     Example: hydroatlas grid district.gpkg --cell 250 --layers CAP,ULS,SHL,LCL --out model/district.nc
     """
     with open_store(store) as s:
+        min_thickness = _in_units(min_thickness, "length", s.settings.length_unit,
+                                  default_unit=s.settings.length_unit)
         res = workflows.model_grid(s, cell=cell, out=out, origin=origin, shape=shape, rotation=rotation,
                                    layers=[c.strip() for c in layers.split(",")] if layers else None,
                                    kv_ratio=kv_ratio, k_source=k_source, min_thickness=min_thickness,
-                                   surfaces=surfaces, max_cells=max_cells)
+                                   surfaces=surfaces, max_cells=max_cells,
+                                   policy=_policy(include_poor, include_pumping_wells, exclude_wells))
+    _say_selection(res.get("selection"))
     nl, nr, nc = res["shape"]
     click.echo(f"model grid: {nl} layers ({', '.join(res['layers'])}) x {nr} rows x {nc} columns")
     for kind, path in res["files"].items():
@@ -693,12 +984,14 @@ def slugs(store, method, no_write, fmt):
 
     Fits ln(H/H0) over H/H0 0.15-0.25 (Hvorslev) or 0.20-0.30 (Bouwer and Rice); repeat
     tests of a zone that differ by more than 25 % are flagged. Import the records
-    (kind slugtests) and the well geometry (kind sluggeometry) first.
+    (kind slugtests) and the well geometry (kind sluggeometry) first. K is reported
+    and stored in the store's K unit (ft/d in a feet store, m/d in a metre store).
     """
     with open_store(store) as s:
         out = workflows.reduce_slug_tests(s, method=method, write=not no_write)
-    cols = [c for c in ("well_id", "zone_id", "test_id", "method", "k_ms", "r2", "repeat_disagree", "problem")
-            if c in out]
+    # K in the store's K unit (named in k_unit); csv and json also carry k_ms (m/s)
+    cols = [c for c in ("well_id", "zone_id", "test_id", "method", "k", "k_unit", "r2", "repeat_disagree",
+                        "problem") + (("k_ms",) if fmt != "table" else ()) if c in out]
     _emit(out[cols], fmt)
 
 

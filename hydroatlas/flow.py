@@ -101,6 +101,104 @@ def _nan_gradient(h):
     return out[0], out[1]
 
 
+def values_at(x0: float, y0: float, cell: float, grid, xy, *, search: int = 1) -> np.ndarray:
+    """Values of a north-up grid at points: the cell holding each point, else the median of finite neighbours.
+
+    Parameters
+    ----------
+    x0, y0 : float
+        Upper-left corner of the grid.
+    cell : float
+        Cell size.
+    grid : array (nrows, ncols)
+        Values; NaN where there are none.
+    xy : array (n, 2)
+        Points (same CRS units).
+    search : int
+        Where the point's own cell is NaN, the median of the finite cells within this many cells around it.
+
+    Returns
+    -------
+    array (n,)
+        NaN for points outside the grid or without a finite value nearby.
+    """
+    cell = _number("cell", cell)
+    g = np.asarray(grid, float)
+    p = np.atleast_2d(np.asarray(xy, float))
+    if g.ndim != 2 or p.ndim != 2 or p.shape[1] != 2:
+        raise ParameterError(f"values_at needs a 2-D grid and points of shape (n, 2); got {g.shape}, {p.shape}")
+    col = np.floor((p[:, 0] - x0) / cell).astype(np.int64)
+    row = np.floor((y0 - p[:, 1]) / cell).astype(np.int64)
+    out = np.full(len(p), np.nan)
+    for i, (r, c) in enumerate(zip(row, col)):
+        if not (0 <= r < g.shape[0] and 0 <= c < g.shape[1]):
+            continue
+        if np.isfinite(g[r, c]):
+            out[i] = g[r, c]
+            continue
+        block = g[max(r - search, 0):r + search + 1, max(c - search, 0):c + search + 1]
+        if np.isfinite(block).any():
+            out[i] = float(np.nanmedian(block))
+    return out
+
+
+# -- capture of a pumping well in uniform flow (Javandel and Tsang 1986) -------------
+def stagnation_distance(Q, b, q):
+    """Distance from a well to the stagnation point downgradient of it, in uniform regional flow.
+
+    x0 = Q / (2 pi b q) (Javandel and Tsang 1986), with Q the pumping rate
+    (volume / time), b the aquifer thickness (length) and q the regional Darcy
+    flux K i (length / time), all in consistent units. The capture zone's
+    half-width is pi x0 at the well's line and its full width far upgradient is
+    2 pi x0 = Q / (b q) (:func:`capture_width`). Scalars or arrays; q = 0 gives inf.
+    """
+    Q_ = np.asarray(Q, float)
+    b_ = np.asarray(b, float)
+    q_ = np.asarray(q, float)
+    if np.any(~np.isfinite(Q_) | (Q_ < 0)) or np.any(~np.isfinite(b_) | (b_ <= 0)) or np.any(~(q_ >= 0)):
+        raise ParameterError("stagnation distance needs Q >= 0, b > 0 and q >= 0, all finite (q may be inf)")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        x0 = np.where(Q_ == 0, 0.0, Q_ / (2.0 * np.pi * b_ * q_))
+    return float(x0) if x0.ndim == 0 else x0
+
+
+def capture_width(Q, b, q):
+    """Full width of a well's capture zone far upgradient in uniform flow: Q / (b q) (Javandel and Tsang 1986)."""
+    return 2.0 * np.pi * stagnation_distance(Q, b, q)
+
+
+def capture_radius(Q, b, q, *, r_min: float, r_max: float):
+    """Radius within which a particle ends at a pumping well: its stagnation distance, bounded.
+
+    The disc of radius x0 = Q / (2 pi b q) (:func:`stagnation_distance`) lies
+    inside the well's capture zone in uniform flow (the zone's edge is nearest
+    the well at the stagnation point), so a particle that enters it is captured.
+    ``r_min`` keeps the disc from vanishing below grid resolution (a particle
+    converging on a well resolved only to a cell would otherwise stall beside
+    it); ``r_max`` keeps a strong well in a nearly flat head field from
+    swallowing the map.
+
+    Parameters
+    ----------
+    Q, b, q : float or array_like
+        Rate (volume / time, >= 0), thickness (length, > 0) and regional Darcy flux (length / time, >= 0),
+        consistent units.
+    r_min, r_max : float
+        Bounds (length), 0 <= r_min <= r_max.
+
+    Returns
+    -------
+    float or numpy.ndarray
+        The bounded radius (length).
+    """
+    r_min = _number("r_min", r_min, strict=False)
+    r_max = _number("r_max", r_max, strict=False)
+    if r_max < r_min:
+        raise ParameterError(f"r_max must be >= r_min; got r_min={r_min}, r_max={r_max}")
+    x0 = np.clip(np.asarray(stagnation_distance(Q, b, q), float), r_min, r_max)
+    return float(x0) if x0.ndim == 0 else x0
+
+
 # -- particle tracking -----------------------------------------------------------
 END_KINDS = ("sink", "edge", "stagnation", "max_time", "max_steps")
 

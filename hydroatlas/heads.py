@@ -81,13 +81,20 @@ class TimeWindow:
         return cls(start, end, text)
 
 
-def select_heads(heads: pd.DataFrame, *, window: TimeWindow | None = None, at: str | None = None) -> pd.DataFrame:
+def select_heads(heads: pd.DataFrame, *, window: TimeWindow | None = None, at: str | None = None,
+                 tolerance_days: float | None = None) -> pd.DataFrame:
     """One head per zone: the median inside ``window``, the reading nearest ``at``, or the median of all.
+
+    This is the arithmetic only; which readings may take part (quality, pumping wells, excluded wells)
+    is decided by :func:`hydroatlas.selection.select_heads`, which calls this.
 
     Parameters
     ----------
     heads : DataFrame
         well_id, zone_id, measured_at (ISO text), head.
+    tolerance_days : float, optional
+        With ``at``: a zone whose nearest reading lies more than this many days from ``at`` gets no head
+        (it is left out of the result). None: no limit.
 
     Returns
     -------
@@ -96,6 +103,9 @@ def select_heads(heads: pd.DataFrame, *, window: TimeWindow | None = None, at: s
     """
     if window is not None and at is not None:
         raise ParameterError("give a window or a date, not both")
+    if tolerance_days is not None and not (isinstance(tolerance_days, (int, float, np.number))
+                                           and np.isfinite(tolerance_days) and tolerance_days >= 0):
+        raise ParameterError(f"the tolerance must be a number of days >= 0 and finite (got {tolerance_days})")
     h = heads[["well_id", "zone_id", "measured_at", "head"]].copy()
     h["t"] = pd.to_datetime(h["measured_at"], format="ISO8601")
     if at is not None:
@@ -105,6 +115,13 @@ def select_heads(heads: pd.DataFrame, *, window: TimeWindow | None = None, at: s
         h["offset_days"] = (h["t"] - t0).abs() / pd.Timedelta(days=1)
         h = h.sort_values(["well_id", "zone_id", "offset_days", "t"])
         out = h.groupby(["well_id", "zone_id"], sort=True).head(1)
+        if tolerance_days is not None:
+            near = out["offset_days"] <= float(tolerance_days)
+            if not near.any():
+                raise InsufficientDataError(
+                    f"no zone has a head reading within {float(tolerance_days):g} days of {at} (the nearest is "
+                    f"{float(out['offset_days'].min()):.0f} days away); give a wider --tolerance or another date")
+            out = out[near]
         out = out.assign(n_readings=1, first=out["measured_at"], last=out["measured_at"])
         return out[["well_id", "zone_id", "head", "n_readings", "first", "last", "offset_days"]].reset_index(drop=True)
     if window is not None:

@@ -34,6 +34,8 @@ __all__ = [
     "thiem_transmissivity",
     "superpose_drawdown",
     "superpose_drawdown_grid",
+    "history_terms",
+    "full_penetrations",
 ]
 
 #: Euler-Mascheroni constant (from memory: 0.57721 56649 01532 86060...).
@@ -358,7 +360,7 @@ _BLOCK = 256  # points per parallel work item in _superpose_points
 
 @njit(cache=True, parallel=True)
 def _superpose_points(px, py, wx, wy, coef, r2min, c, table):
-    """Sum over wells q of coef_q W(max(r^2, r2min_q) c) at each point."""
+    """Sum over wells q of coef_q W(max(r^2, r2min_q) c_q) at each point."""
     m = px.shape[0]
     k = wx.shape[0]
     out = np.zeros(m)
@@ -370,13 +372,14 @@ def _superpose_points(px, py, wx, wy, coef, r2min, c, table):
         bits = buf.view(np.int64)
         for q in range(k):
             rq = r2min[q]
+            cq_u = c[q]
             for p in range(lo, hi):
                 dx = px[p] - wx[q]
                 dy = py[p] - wy[q]
                 r2 = dx * dx + dy * dy
                 if r2 < rq:
                     r2 = rq
-                buf[p - lo] = r2 * c
+                buf[p - lo] = r2 * cq_u
             cq = coef[q]
             for p in range(lo, hi):
                 out[p] += cq * _w_bits(buf[p - lo], bits[p - lo], table)
@@ -385,7 +388,7 @@ def _superpose_points(px, py, wx, wy, coef, r2min, c, table):
 
 @njit(cache=True, parallel=True)
 def _superpose_grid(xc, yc, wx, wy, coef, r2min, c, table):
-    """Sum over wells q of coef_q W(max(r^2, r2min_q) c) on the grid (yc[i], xc[j])."""
+    """Sum over wells q of coef_q W(max(r^2, r2min_q) c_q) on the grid (yc[i], xc[j])."""
     nx = xc.shape[0]
     ny = yc.shape[0]
     k = wx.shape[0]
@@ -402,21 +405,31 @@ def _superpose_grid(xc, yc, wx, wy, coef, r2min, c, table):
             d = yc[i] - wy[q]
             dy2 = d * d
             rq = r2min[q]
-            if max(dy2, rq) * c >= _U_HI:
+            cq_u = c[q]
+            if max(dy2, rq) * cq_u >= _U_HI:
                 continue  # the whole row lies beyond the reach of this well
             for j in range(nx):
                 r2 = dx2[q, j] + dy2
                 if r2 < rq:
                     r2 = rq
-                buf[j] = r2 * c
+                buf[j] = r2 * cq_u
             cq = coef[q]
             for j in range(nx):
                 out[i, j] += cq * _w_bits(buf[j], bits[j], table)
     return out
 
 
+def _per_well(name: str, a: np.ndarray, k: int) -> np.ndarray:
+    """One number for every well, or one number per well: always an array of shape (k,)."""
+    if a.ndim == 0:
+        return np.full(k, float(a))
+    if a.shape != (k,):
+        raise ParameterError(f"{name} must be one number or have shape ({k},); got {a.shape}")
+    return a
+
+
 def _superpose_args(wells_xy, rates, t, T, S, r_min):
-    """Validate the shared arguments; return well x, y, per-well coefficients, r_min^2 and c."""
+    """Validate the shared arguments; return well x, y, per-well coefficients, r_min^2 and u / r^2 per well."""
     w = _finite("wells_xy", wells_xy)
     if w.ndim != 2 or w.shape[1] != 2:
         raise ParameterError(f"wells_xy must have shape (k, 2); got {w.shape}")
@@ -424,28 +437,25 @@ def _superpose_args(wells_xy, rates, t, T, S, r_min):
     q = _finite("rates", rates)
     if q.shape != (k,):
         raise ParameterError(f"rates must have shape ({k},) to match wells_xy; got {q.shape}")
-    t_ = _scalar("t", _positive("t", t))
-    T_ = _scalar("T", _positive("T", T))
-    S_ = _scalar("S", _storativity(S))
-    if r_min is None:
-        rm = np.full(k, DEFAULT_R_MIN)
-    else:
-        rm = _positive("r_min", r_min)
-        if rm.ndim == 0:
-            rm = np.full(k, float(rm))
-        elif rm.shape != (k,):
-            raise ParameterError(f"r_min must be one number or have shape ({k},); got {rm.shape}")
+    t_ = _per_well("t", _positive("t", t), k)
+    T_ = _per_well("T", _positive("T", T), k)
+    S_ = _per_well("S", _storativity(S), k)
+    rm = np.full(k, DEFAULT_R_MIN) if r_min is None else _per_well("r_min", _positive("r_min", r_min), k)
     coef = q / (4.0 * math.pi * T_)
     c = S_ / (4.0 * T_ * t_)
     return (np.ascontiguousarray(w[:, 0]), np.ascontiguousarray(w[:, 1]),
-            np.ascontiguousarray(coef), np.ascontiguousarray(rm * rm), c)
+            np.ascontiguousarray(coef), np.ascontiguousarray(rm * rm), np.ascontiguousarray(c))
 
 
 def superpose_drawdown(xy, wells_xy, rates, t, *, T, S, r_min=None):
     """Theis drawdown at many points from many wells, summed (superposition).
 
-    s(p) = sum_k rates_k / (4 pi T) W(r_pk^2 S / (4 T t)), with the distance
-    r_pk from well k to point p clamped below at r_min. W is read from a
+    s(p) = sum_k rates_k / (4 pi T_k) W(r_pk^2 S_k / (4 T_k t_k)), with the
+    distance r_pk from well k to point p clamped below at r_min. t, T and S
+    are one number for all wells or one per well: a per-well t superposes
+    wells that started at different times (a negative rate at the time a well
+    stopped gives its recovery), a per-well T uses the transmissivity at each
+    well (a screening approximation where T varies). W is read from a
     precomputed table (relative error < 1e-8 wherever W > 1e-4, see the module
     source), in a compiled parallel kernel: 1e8 well-point pairs take well under
     a second on two cores.
@@ -459,12 +469,12 @@ def superpose_drawdown(xy, wells_xy, rates, t, *, T, S, r_min=None):
     rates : array_like (k,)
         Pumping rate of each well (volume / time, e.g. m3/d), positive for
         extraction, negative for injection.
-    t : float
-        Time since all wells started pumping, > 0 (time, e.g. d).
-    T : float
-        Transmissivity, > 0 (length^2 / time, e.g. m2/d).
-    S : float
-        Storativity, in (0, 1], dimensionless.
+    t : float or array_like (k,)
+        Time since the wells (or each well) started pumping, > 0 (time, e.g. d).
+    T : float or array_like (k,)
+        Transmissivity, > 0 (length^2 / time, e.g. m2/d), one for all wells or one per well.
+    S : float or array_like (k,)
+        Storativity, in (0, 1], dimensionless, one for all wells or one per well.
     r_min : float or array_like (k,), optional
         Smallest distance used (length): a point closer than r_min to a well
         (the well itself included) gets the drawdown at r_min, the well-face
@@ -525,3 +535,98 @@ def superpose_drawdown_grid(x_centers, y_centers, wells_xy, rates, t, *, T, S, r
     wx, wy, coef, r2min, c = _superpose_args(wells_xy, rates, t, T, S, r_min)
     return _superpose_grid(np.ascontiguousarray(xc), np.ascontiguousarray(yc),
                            wx, wy, coef, r2min, c, _TABLE)
+
+
+# ---------------------------------------------------------------------------
+# pumping histories and the thickness behind T = K b
+# ---------------------------------------------------------------------------
+
+def history_terms(rates, since_start, since_stop=None):
+    """Superposition terms of pumping records: each record's start and, if it stopped, its stop.
+
+    A record pumping Q from t_on to t_off gives, at a later time t, the drawdown
+    Q W(u(t - t_on)) - Q W(u(t - t_off)) (superposition in time: a well that
+    stops is the same well plus an injection of Q from t_off on). This returns
+    the terms of that sum, to be passed to :func:`superpose_drawdown` with one
+    ``t`` per term.
+
+    Parameters
+    ----------
+    rates : array_like (k,)
+        Rate of each record (volume / time), finite.
+    since_start : array_like (k,)
+        Time from each record's start to the time of interest (time). A record
+        with ``since_start <= 0`` has not started yet and gives no term.
+    since_stop : array_like (k,), optional
+        Time from each record's stop to the time of interest; NaN (or <= 0)
+        where the record had not stopped by then. Must not exceed ``since_start``.
+
+    Returns
+    -------
+    index, rates, times : numpy.ndarray
+        For every term, the record it belongs to (int), its rate (+Q at the
+        start, -Q at the stop) and its elapsed time (> 0).
+
+    Raises
+    ------
+    ParameterError
+        On shapes that differ, non-finite rates or start times, or a stop before the start.
+    """
+    q = _finite("rates", rates)
+    t_on = _finite("since_start", since_start)
+    if q.ndim != 1 or t_on.shape != q.shape:
+        raise ParameterError(f"rates and since_start must be 1-D of one shape; got {q.shape}, {t_on.shape}")
+    if since_stop is None:
+        t_off = np.full(q.shape, np.nan)
+    else:
+        t_off = np.asarray(since_stop, dtype=float)
+        if t_off.shape != q.shape or np.isinf(t_off).any():
+            raise ParameterError(f"since_stop must be finite or NaN, of shape {q.shape}; got shape {t_off.shape}")
+    stopped = np.isfinite(t_off) & (t_off > 0)
+    if (stopped & (t_off > t_on)).any():
+        raise ParameterError("a record stops before it starts (since_stop > since_start)")
+    started = t_on > 0
+    idx = np.flatnonzero(started)
+    stop_idx = np.flatnonzero(started & stopped)
+    index = np.concatenate([idx, stop_idx])
+    out_q = np.concatenate([q[idx], -q[stop_idx]])
+    times = np.concatenate([t_on[idx], t_off[stop_idx]])
+    return index, out_q, times
+
+
+def full_penetrations(bottom_depth, total_depth, has_unit_below, *, tolerance: float):
+    """Which wells' picks hold a unit's true bottom (and hence its full thickness).
+
+    A pick's bottom is only the unit's bottom when the well went on below it:
+    a pick whose bottom lies at the well's total depth (within ``tolerance``)
+    is where the drilling stopped. The well must also show that it went on: a
+    pick of a lower unit, or a known total depth below the pick (the lowest
+    unit of a district has no unit below to pick). A well with neither, e.g.
+    no total depth and no lower pick, has not shown the bottom.
+
+    Parameters
+    ----------
+    bottom_depth : array_like (n,)
+        Depth of the unit's bottom pick at each well (length).
+    total_depth : array_like (n,)
+        Total depth of each well (same length unit); NaN where unknown.
+    has_unit_below : array_like of bool (n,)
+        Whether the well has a pick of a unit below this one.
+    tolerance : float
+        Largest difference (length, >= 0) at which a bottom counts as "at total depth".
+
+    Returns
+    -------
+    numpy.ndarray of bool (n,)
+    """
+    bottom = _finite("bottom_depth", bottom_depth)
+    td = np.asarray(total_depth, dtype=float)
+    below = np.asarray(has_unit_below, dtype=bool)
+    if td.shape != bottom.shape or below.shape != bottom.shape:
+        raise ParameterError(f"bottom_depth, total_depth and has_unit_below must have one shape; got "
+                             f"{bottom.shape}, {td.shape}, {below.shape}")
+    if not (np.isfinite(tolerance) and tolerance >= 0):
+        raise ParameterError(f"tolerance must be finite and >= 0; got {tolerance}")
+    at_total_depth = np.isfinite(td) & (np.abs(td - bottom) <= tolerance)
+    drilled_on = np.isfinite(td) & (td > bottom + tolerance)
+    return (below | drilled_on) & ~at_total_depth

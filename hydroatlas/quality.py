@@ -31,7 +31,8 @@ def find_issues(*, wells, zones, picks, units, ktests, heads, assignment,
 
     Parameters are the store tables as DataFrames; ``assignment`` is the result
     of :func:`hydroatlas.assign.assign_zones`; ``heads`` needs well_id, zone_id, head;
-    ``length_unit`` is the store's length unit, named in messages that give a length.
+    ``length_unit`` is the store's length unit, named in messages that give a length; K outliers are
+    reported as log10 of K in that unit per day (m/s when it is not given), the unit said in the message.
     """
     out: list[dict] = []
     asg = assignment
@@ -67,7 +68,7 @@ def find_issues(*, wells, zones, picks, units, ktests, heads, assignment,
     tested = ktests.merge(asg[["well_id", "zone_id", "unit"]], on=["well_id", "zone_id"], how="left")
     for code in units.loc[~units["code"].isin(set(tested["unit"].dropna())), "code"]:
         out.append(_finding("unit_without_tests", "info", "no K test is assigned to this unit", unit=code))
-    out += _k_outliers(tested)
+    out += _k_outliers(tested, f"{length_unit}/d" if length_unit else "m/s")
     out += _head_findings(heads, asg)
     return out
 
@@ -132,12 +133,15 @@ def _zone_overlaps(zones: pd.DataFrame, length_unit: str | None) -> list[dict]:
     return out
 
 
-def _k_outliers(tested: pd.DataFrame) -> list[dict]:
+def _k_outliers(tested: pd.DataFrame, k_unit: str = "m/s") -> list[dict]:
+    """K tests far from their unit's mean log10 K; the messages give log10 of K in ``k_unit`` and say so."""
+    from .quantities import k_from_ms
+
     out = []
     t = tested[tested["unit"].notna()].copy()
     if t.empty:
         return out
-    t["lg"] = np.log10(t["k_ms"].to_numpy(float))
+    t["lg"] = np.log10(k_from_ms(t["k_ms"].to_numpy(float), k_unit))
     grp = t.groupby("unit")["lg"]
     t["mean"] = grp.transform("mean")
     t["sd"] = grp.transform(lambda s: s.std(ddof=1))
@@ -145,8 +149,8 @@ def _k_outliers(tested: pd.DataFrame) -> list[dict]:
     flag = (t["n"] >= MIN_TESTS_FOR_OUTLIER) & ((t["lg"] - t["mean"]).abs() > K_OUTLIER_SD * t["sd"])
     for r in t[flag].itertuples():
         out.append(_finding("k_outlier", "warning",
-                            f"log10 K = {r.lg:.2f} lies {abs(r.lg - r.mean) / r.sd:.1f} standard deviations from "
-                            f"the unit mean {r.mean:.2f} (test {r.test_id})",
+                            f"log10 K = {r.lg:.2f} (K in {k_unit}) lies {abs(r.lg - r.mean) / r.sd:.1f} standard "
+                            f"deviations from the unit mean {r.mean:.2f} (test {r.test_id})",
                             well_id=r.well_id, zone_id=r.zone_id, unit=r.unit))
     return out
 

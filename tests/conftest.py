@@ -101,3 +101,7 @@ def mini_store(empty_store, mini_files, runner) -> Path:
 def require_all() -> bool:
     """CI sets HYDROATLAS_REQUIRE_ALL=1: a missing optional tool is then a failure, not a skip."""
     return os.environ.get("HYDROATLAS_REQUIRE_ALL") == "1"
+
+
+# The truth district (tests/truthdistrict.py): fixtures `truth` and `truth_store`.
+from truth_fixtures import truth, truth_store  # noqa: E402,F401

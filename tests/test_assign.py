@@ -85,3 +85,24 @@ def test_many_zones_vectorised():
     out = assign_zones(zones, picks, wells, UNITS)
     expected = np.where(tops + 2.5 < 20, "A", np.where(tops + 2.5 < 30, "B", "C"))
     assert (out["unit"].to_numpy() == expected).all()
+
+
+def test_inferred_picks_follow_the_unit_extent():
+    """A unit the picks show absent in the west is not inferred at a well without picks there (common practice).
+
+    B lies only under the east wells; at the west wells the picks of A and C touch. A well without picks
+    near the west wells gets A and C but no B, and a zone at B's depth there goes to A or C, not to B;
+    a well without picks in the east still gets B.
+    """
+    east = [(f"E{j}", 1000.0, 100.0 * j) for j in range(3)]
+    west = [(f"V{j}", 0.0, 100.0 * j) for j in range(3)]
+    wells = _wells(*[(w, x, y, 100.0, 80.0) for w, x, y in east + west],
+                   ("XW", 100.0, 100.0, 100.0, 80.0), ("XE", 900.0, 100.0, 100.0, 80.0))
+    picks = _picks(*[r for w, _, _ in east for r in ((w, "A", 0, 20), (w, "B", 20, 30), (w, "C", 30, 80))],
+                   *[r for w, _, _ in west for r in ((w, "A", 0, 25), (w, "C", 25, 80))])
+    inferred = infer_picks(wells, picks, UNITS)
+    assert set(inferred.loc[inferred["well_id"] == "XW", "unit"]) == {"A", "C"}
+    assert set(inferred.loc[inferred["well_id"] == "XE", "unit"]) == {"A", "B", "C"}
+    out = assign_zones(_zones(("XW", "z", 21, 24, None), ("XE", "z", 22, 28, None)), picks, wells, UNITS)
+    units = dict(zip(out["well_id"], out["unit"]))
+    assert units["XW"] in ("A", "C") and units["XE"] == "B"

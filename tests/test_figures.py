@@ -197,7 +197,7 @@ def test_variogram_fit_curve_follows_the_model(tmp_path, captured):
     paths = figures.variogram_fit(stem, EXPERIMENTAL, SPHERICAL, title="Test variogram")
     text = _check_files(paths, stem, (6.5, 4.5))
     for label in ("nugget = 1", "sill = 10", "practical range = 1000", "spherical model", "Test variogram",
-                  "Lag distance (map units)"):
+                  "Lag distance (CRS units)"):
         assert label in text, label
     assert 'id="variogram-model"' in paths[1].read_text(encoding="utf-8")
     ax = captured[0].axes[0]
@@ -214,6 +214,23 @@ def test_variogram_fit_curve_follows_the_model(tmp_path, captured):
     sizes = ax.collections[0].get_sizes()
     assert np.argmax(sizes) == int(np.argmax(EXPERIMENTAL["counts"]))
     assert np.argmin(sizes) == int(np.argmin(EXPERIMENTAL["counts"]))
+
+
+def test_variogram_fit_axes_name_distance_and_value_units(tmp_path, captured):
+    """Lags in the CRS's unit, semivariance in the square of the values' unit (issue 10: no "map units")."""
+    paths = figures.variogram_fit(tmp_path / "vg", EXPERIMENTAL, SPHERICAL, title="AQ head", distance_unit="ftUS",
+                                  value_unit="ft")
+    ax = captured[0].axes[0]
+    assert ax.get_xlabel() == "Lag distance (ftUS)"
+    assert ax.get_ylabel() == "Semivariance γ(h) (ft²)"
+    text = _svg_text(paths[1])
+    for label in ("practical range = 1000 ftUS", "sill = 10 ft²", "nugget = 1 ft²"):
+        assert label in text, label
+    figures.variogram_fit(tmp_path / "vk", EXPERIMENTAL, SPHERICAL, distance_unit="m", value_unit="log10(ft/d)")
+    ax = captured[1].axes[0]
+    assert ax.get_xlabel() == "Lag distance (m)"
+    assert ax.get_ylabel() == "Semivariance γ(h) ((log10 K)², K in ft/d)"
+    assert "map units" not in ax.get_xlabel() + ax.get_ylabel()
 
 
 def test_variogram_fit_range_beyond_lags_and_other_models(tmp_path, captured):

@@ -108,3 +108,17 @@ def test_parse_instant_names_what_it_read():
     assert parse_instant("2024-03-01T06:30") == (pd.Timestamp("2024-03-01T06:30"), True)
     with pytest.raises(ParameterError, match=r"^--at '2024' is not an ISO 8601 date"):
         parse_instant("2024", name="--at")
+
+
+def test_nearest_to_date_within_a_tolerance():
+    # 2024-05-20: A's nearest reading is 2024-04-01 (49 days), B's 2024-06-01 (12 days)
+    sel = select_heads(HEADS, at="2024-05-20", tolerance_days=31).set_index("well_id")
+    assert list(sel.index) == ["B"] and sel.loc["B", "head"] == 8.0
+    sel = select_heads(HEADS, at="2024-05-20", tolerance_days=49)  # the bound is inclusive
+    assert sorted(sel["well_id"]) == ["A", "B"]
+    assert len(select_heads(HEADS, at="2024-05-20", tolerance_days=None)) == 2  # no limit
+    with pytest.raises(InsufficientDataError, match=r"within 5 days of 2024-05-20 \(the nearest is 12 days away\)"):
+        select_heads(HEADS, at="2024-05-20", tolerance_days=5)
+    for bad in (-1.0, float("nan"), float("inf"), "31"):
+        with pytest.raises(ParameterError, match="tolerance"):
+            select_heads(HEADS, at="2024-05-20", tolerance_days=bad)

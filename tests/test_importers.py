@@ -75,7 +75,7 @@ CASES = {
 def test_bad_file_changes_nothing(case, mini_store, tmp_path, runner):
     kind, change, expected = CASES[case]
     if kind == "pumping":
-        rows = [["well_id", "zone_id", "rate", "rate_unit", "start", "end"], ["W1", "", "5", "acre-ft/yr", "2024-01-01", ""]]
+        rows = [["well_id", "zone_id", "rate", "rate_unit", "start", "end"], ["W1", "", "5", "furlong3/fortnight", "2024-01-01", ""]]
     else:
         rows = rows_with(f"{kind}.csv", change)
     path = write_csv(tmp_path / f"{kind}.csv", rows)

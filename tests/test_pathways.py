@@ -35,7 +35,8 @@ def flow_store(empty_store, tmp_path, runner):
     rng = np.random.default_rng(2)
     xs, ys = X0 + rng.uniform(0, 6000, 25), Y0 + rng.uniform(0, 4000, 25)
     rows = {
-        "units": [["code", "name", "rank", "role"], ["AQ", "aquifer", 1, "aquifer"]],
+        # BASE under AQ: every well goes through AQ into it, so AQ's picks hold its full thickness (150 m)
+        "units": [["code", "name", "rank", "role"], ["AQ", "aquifer", 1, "aquifer"], ["BASE", "base", 2, "aquitard"]],
         "wells": [["well_id", "x", "y", "ground_elev", "total_depth", "kind"]],
         "picks": [["well_id", "unit", "top_depth", "bottom_depth"]],
         "zones": [["well_id", "zone_id", "top_depth", "bottom_depth"]],
@@ -44,8 +45,9 @@ def flow_store(empty_store, tmp_path, runner):
     }
     for i, (x, y) in enumerate(zip(xs, ys)):
         w = f"W{i:02d}"
-        rows["wells"].append([w, f"{x:.3f}", f"{y:.3f}", 400, 150, "monitoring"])
+        rows["wells"].append([w, f"{x:.3f}", f"{y:.3f}", 400, 170, "monitoring"])
         rows["picks"].append([w, "AQ", 0, 150])
+        rows["picks"].append([w, "BASE", 150, 170])
         rows["zones"].append([w, "S", 50, 60])
         rows["heads"].append([w, "S", "2024-01-01", f"{plane(round(x, 3), round(y, 3)):.9f}"])
         rows["ktests"].append([w, "S", "2024-01-01", "slug", K_MD, "m/d"])
@@ -104,8 +106,14 @@ def test_paths_forward_and_backward(flow_store, tmp_path, runner):
     # in uniform flow the spring's catchment is the band of the capture radius upgradient of it
     assert spr.bounds[1] == pytest.approx(sy - 200, abs=60) and spr.bounds[3] == pytest.approx(sy + 200, abs=60)
     assert spr.bounds[2] <= sx + 260
-    back = pd.read_csv(out / "AQ_pathways.csv")
+    back = pd.read_csv(out / "AQ_pathways_backward.csv")
     assert back.loc[back["recharge_area"] == "REC", "share"].iloc[0] > 0.4
+    # the backward run has its own table and sidecar; the forward ones are still there, unchanged
+    pd.testing.assert_frame_equal(pd.read_csv(out / "AQ_pathways.csv"), table)
+    assert json.loads((out / "AQ_pathways.json").read_text())["direction"] == "forward"
+    assert json.loads((out / "AQ_pathways_backward.json").read_text())["direction"] == "backward"
+    kept = pyogrio.read_dataframe(out / "layers.gpkg", layer="pathlines")
+    assert set(kept["direction"]) == {"forward", "backward"}
 
 
 def test_paths_bad_input(flow_store, tmp_path, runner):
@@ -194,3 +202,83 @@ def test_defaults_are_announced(flow_store, tmp_path, runner):
                              f"{X0 + 2000},{Y0 + 2000},500", "--out", str(out)])
     assert res.exit_code == 0 and "--storativity not given" in res.output
     assert json.loads((out / "AQ_drawdown.json").read_text())["storativity"] == 1e-4
+
+
+def add_pumping_well(store, tmp_path, runner, wid, x, y, records):
+    """A well open to AQ (zone P) with pumping records (rate_m3d, start, end)."""
+    tables = {
+        "wells": [["well_id", "x", "y", "ground_elev", "total_depth", "kind"], [wid, x, y, 400, 170, "pumping"]],
+        "picks": [["well_id", "unit", "top_depth", "bottom_depth"], [wid, "AQ", 0, 150], [wid, "BASE", 150, 170]],
+        "zones": [["well_id", "zone_id", "top_depth", "bottom_depth"], [wid, "P", 50, 120]],
+        "pumping": [["well_id", "zone_id", "rate", "rate_unit", "start", "end"]]
+        + [[wid, "P", q, unit, start, end] for q, unit, start, end in records],
+    }
+    for kind, rows in tables.items():
+        res = cli(runner, "import", store, kind, write_csv(tmp_path / f"{wid}_{kind}.csv", rows))
+        assert res.exit_code == 0, res.output
+
+
+def forward_share(out, table="AQ_pathways.csv"):
+    t = pd.read_csv(out / table)
+    return dict(zip(t["destination"], t["share"]))
+
+
+def test_stopped_weak_well_is_not_a_sink(flow_store, tmp_path, runner):
+    """A well that pumped 1 gpm and stopped decades before the heads is not a sink: every particle that reached
+    the spring still does. The same well pumping now captures only within its stagnation distance
+    Q / (2 pi b K i) (Javandel and Tsang 1986; here 0.18 m, raised to a quarter cell), not two cells."""
+    out = tmp_path / "out"
+    add_spring_and_recharge(flow_store, tmp_path, runner)
+    wx, wy = X0 + 3000.0, Y0 + 2000.0  # on the line from the recharge area to the spring
+    add_pumping_well(flow_store, tmp_path, runner, "OLD", wx, wy, [(1, "gpm", "1990-01-01", "1995-01-01")])
+    make_surface(flow_store, out, runner)
+    args = ["paths", flow_store, "--unit", "AQ", "--porosity", POROSITY, "--seed-spacing", 50, "--out", out]
+    res = cli(runner, *args)
+    assert res.exit_code == 0, res.output
+    side = json.loads((out / "AQ_pathways.json").read_text())
+    assert [s["id"] for s in side["sinks"]] == ["SPR"]
+    # the spring (no discharge readings: 2 cells, 100 m) takes the 4 of 12 seed rows within 100 m of its line
+    assert forward_share(out) == {"spring SPR": pytest.approx(4 / 12), "edge": pytest.approx(8 / 12)}
+    add_pumping_well(flow_store, tmp_path, runner, "OLD", wx, wy, [(1, "gpm", "2023-06-01", "")])
+    res = cli(runner, *args)
+    assert res.exit_code == 0, res.output
+    side = json.loads((out / "AQ_pathways.json").read_text())
+    sink = {s["id"]: s for s in side["sinks"]}["OLD"]
+    q = 1 * 3.785411784e-3 * 1440  # 1 gpm in m3/d (exact definitions)
+    assert sink["stagnation_distance"] == pytest.approx(q / (2 * np.pi * 150.0 * K_MD * abs(A)), rel=0.02)
+    assert sink["capture_radius"] == pytest.approx(0.25 * 50.0)  # the lower bound: a quarter of a 50 m cell
+    # the nearest seed rows pass 25 m from the well: the spring keeps all of its particles
+    assert forward_share(out) == {"spring SPR": pytest.approx(4 / 12), "edge": pytest.approx(8 / 12)}
+
+
+def test_paths_on_a_drawdown_scenario(flow_store, tmp_path, runner):
+    """paths --scenario traces on the head surface of 'drawdown --name': a proposed well of 2000 m3/d between
+    the recharge area and the spring captures the particles of a band of about Q / (b K i) = 417 m (Javandel and
+    Tsang 1986) of the 600 m wide recharge area: with seeds every 50 m, 8 of 12 rows (2/3)."""
+    out = tmp_path / "out"
+    add_spring_and_recharge(flow_store, tmp_path, runner)
+    make_surface(flow_store, out, runner)
+    res = cli(runner, "paths", flow_store, "--unit", "AQ", "--porosity", POROSITY, "--seed-spacing", 50, "--out", out)
+    assert res.exit_code == 0, res.output
+    baseline = {"spring SPR": pytest.approx(4 / 12), "edge": pytest.approx(8 / 12)}
+    assert forward_share(out) == baseline
+    wx, wy, q = X0 + 3000.0, Y0 + 2000.0, 2000.0
+    res = cli(runner, "drawdown", flow_store, "--unit", "AQ", "--days", 3650, "-S", 1e-4, "-T", 1200,
+              "--new-well", f"P1,{wx},{wy},{q}", "--name", "plan", "--out", out)
+    assert res.exit_code == 0, res.output
+    res = cli(runner, "paths", flow_store, "--unit", "AQ", "--porosity", POROSITY, "--seed-spacing", 50,
+              "--scenario", "plan", "--out", out)
+    assert res.exit_code == 0, res.output
+    share = forward_share(out, "AQ_pathways_plan.csv")
+    assert share["proposed well P1"] == pytest.approx(8 / 12)
+    # rows outside the capture zone close in behind the well, which takes a band of width W = Q / (b K i) out of
+    # the flow: far downstream a row from offset y0 runs at y0 - W / 2 (225 -> 17 m, 275 -> 67 m), inside the
+    # spring's 100 m
+    assert share["spring SPR"] == pytest.approx(4 / 12)
+    side = json.loads((out / "AQ_pathways_plan.json").read_text())
+    assert side["scenario"] == "plan" and side["head_surface"].endswith("AQ_head_plan.tif")
+    assert forward_share(out) == baseline  # the baseline table is untouched
+    lines = pyogrio.read_dataframe(out / "layers.gpkg", layer="pathlines")
+    assert set(lines["scenario"]) == {"", "plan"}
+    res = cli(runner, "paths", flow_store, "--unit", "AQ", "--porosity", POROSITY, "--scenario", "nope", "--out", out)
+    assert res.exit_code == 2 and "no drawdown scenario 'nope'" in res.output and "--name nope" in res.output

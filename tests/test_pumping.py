@@ -21,6 +21,8 @@ from hydroatlas.pumping import (
     _U_LO,
     _w_table_array,
     cooper_jacob_drawdown,
+    full_penetrations,
+    history_terms,
     superpose_drawdown,
     superpose_drawdown_grid,
     theis_drawdown,
@@ -415,7 +417,9 @@ WELLS = [[0.0, 0.0], [10.0, 0.0]]
     (dict(S=-1e-4), "S must be > 0"),
     (dict(t=0.0), "t must be > 0"),
     (dict(t=-1.0), "t must be > 0"),
-    (dict(t=[1.0, 2.0]), "t must be a single number"),
+    (dict(t=[1.0, 2.0, 3.0]), r"t must be one number or have shape \(2,\)"),
+    (dict(T=[10.0, 10.0, 10.0]), r"T must be one number or have shape \(2,\)"),
+    (dict(T=[10.0, -1.0]), "T must be > 0"),
     (dict(rates=[1.0]), r"rates must have shape \(2,\)"),
     (dict(rates=[1.0, 2.0, 3.0]), r"rates must have shape \(2,\)"),
     (dict(rates=[1.0, np.nan]), "rates must be finite"),
@@ -444,3 +448,61 @@ def test_superpose_refuses_bad_points():
         superpose_drawdown_grid([[0.0, 1.0]], [0.0], WELLS, [1.0, 1.0], 1.0, T=1.0, S=1e-4)
     with pytest.raises(ParameterError, match="y_centers must be 1-D"):
         superpose_drawdown_grid([0.0, 1.0], [[0.0]], WELLS, [1.0, 1.0], 1.0, T=1.0, S=1e-4)
+
+
+# ---------------------------------------------------------------------------
+# per-well times and transmissivities, pumping histories, full penetrations
+# ---------------------------------------------------------------------------
+
+def test_superpose_per_well_time_and_transmissivity():
+    """source: scipy.special.exp1 via theis_drawdown: with one t and one T per well, the sum is the sum of
+    each well's own Theis drawdown (superposition; the wells and values are invented)."""
+    wells = np.array([[0.0, 0.0], [400.0, -150.0], [-250.0, 300.0]])
+    rates = np.array([800.0, 1200.0, -300.0])
+    t = np.array([30.0, 2.5, 400.0])
+    T = np.array([150.0, 900.0, 60.0])
+    S = 2e-4
+    pts = np.array([[10.0, 5.0], [380.0, -100.0], [-1000.0, 700.0], [2000.0, 0.0]])
+    ref = sum(theis_drawdown(np.hypot(*(pts - w).T), tk, Q=q, T=Tk, S=S)
+              for w, q, tk, Tk in zip(wells, rates, t, T))
+    np.testing.assert_allclose(superpose_drawdown(pts, wells, rates, t, T=T, S=S), ref, rtol=1e-6)
+    x = np.linspace(-500, 500, 11)
+    g = superpose_drawdown_grid(x, x[::-1], wells, rates, t, T=T, S=S)
+    xx, yy = np.meshgrid(x, x[::-1])
+    ref_g = sum(theis_drawdown(np.maximum(np.hypot(xx - w[0], yy - w[1]), DEFAULT_R_MIN), tk, Q=q, T=Tk, S=S)
+                for w, q, tk, Tk in zip(wells, rates, t, T))
+    np.testing.assert_allclose(g, ref_g, rtol=1e-6, atol=1e-12)
+
+
+def test_history_terms_recovery_is_superposition_in_time():
+    """source: Theis (1935) with superposition in time (a stop is an injection of the same rate from then on),
+    values from scipy.special.exp1: a well that pumped Q for 100 d and stopped 20 d ago leaves
+    Q/(4 pi T) [W(u(120 d)) - W(u(20 d))]; a record not yet started gives no term."""
+    idx, q, t = history_terms([500.0, 300.0, 200.0], [120.0, 50.0, -5.0], [20.0, np.nan, np.nan])
+    assert idx.tolist() == [0, 1, 0] and q.tolist() == [500.0, 300.0, -500.0] and t.tolist() == [120.0, 50.0, 20.0]
+    r, T, S = 75.0, 250.0, 1e-3
+    s = superpose_drawdown([[r, 0.0]], np.zeros((3, 2)), q, t, T=T, S=S)[0]
+    u = lambda days: r * r * S / (4 * T * days)  # noqa: E731
+    expected = (500.0 * (exp1(u(120.0)) - exp1(u(20.0))) + 300.0 * exp1(u(50.0))) / (4 * math.pi * T)
+    assert s == pytest.approx(expected, rel=1e-6)
+    with pytest.raises(ParameterError, match="stops before it starts"):
+        history_terms([1.0], [5.0], [6.0])
+    with pytest.raises(ParameterError, match="one shape"):
+        history_terms([1.0, 2.0], [5.0], None)
+
+
+def test_full_penetrations():
+    """common practice (no source): a pick shows the bottom of a unit only where the well went on below it (a
+    lower unit picked, or a total depth below the pick); a bottom at the well's total depth is where drilling
+    stopped, and a well without total depth or lower pick has not shown its bottom."""
+    bottom = np.array([82.0, 64.0, 82.0, 79.98, 70.0, 70.0, 70.0])
+    td = np.array([100.0, 64.0, np.nan, 80.0, 90.0, np.nan, 70.03])
+    below = np.array([True, True, True, True, False, False, False])
+    assert full_penetrations(bottom, td, below, tolerance=0.05).tolist() == [True, False, True, False, True, False,
+                                                                             False]
+    assert full_penetrations(bottom, td, below, tolerance=0.0).tolist() == [True, False, True, True, True, False,
+                                                                            True]
+    with pytest.raises(ParameterError, match="tolerance"):
+        full_penetrations(bottom, td, below, tolerance=-1.0)
+    with pytest.raises(ParameterError, match="one shape"):
+        full_penetrations(bottom, td[:2], below, tolerance=0.1)

@@ -29,7 +29,7 @@ def write_text(path, text: str):
 def stats_json(runner, store):
     res = cli(runner, "stats", store, "--format", "json", "--per", "test")
     assert res.exit_code == 0, res.output
-    return {r["unit"]: r for r in json.loads(res.output)}
+    return {r["unit"]: r for r in json.loads(res.stdout)}
 
 
 # -- strict CSV ------------------------------------------------------------------
@@ -127,7 +127,7 @@ def test_corrected_value_updates_and_keeps_history(mini_store, tmp_path, runner)
     assert after["n_tests"] == before["n_tests"] and after["k_max"] < before["k_max"]
     res = cli(runner, "history", mini_store, "ktests", "W4/S1/slug@2024-07-01", "--format", "json")
     assert res.exit_code == 0, res.output
-    versions = json.loads(res.output)
+    versions = json.loads(res.stdout)
     assert [v["k"] for v in versions] == [73.58, 0.7358]
     assert versions[0]["source_file"] == "k1.csv" and versions[0]["replaced_by_file"] == "k2.csv"
     assert versions[0]["replaced_by"] == "update" and versions[-1]["replaced_at"] is None
@@ -172,12 +172,12 @@ def test_retire_takes_records_out_and_restore_brings_them_back(mini_store, runne
     less = stats_json(runner, mini_store)
     assert less["TOP"]["n_tests"] == full["TOP"]["n_tests"] - 1
     res = cli(runner, "check", mini_store, "--json")
-    retired = [f for f in json.loads(res.output) if f["kind"] == "retired"]
+    retired = [f for f in json.loads(res.stdout) if f["kind"] == "retired"]
     assert len(retired) == 1 and "logger drift" in retired[0]["message"]
     assert cli(runner, "restore", mini_store, "ktests", "W1/P1/slug@2024-05-02").exit_code == 0
     assert stats_json(runner, mini_store) == full
     versions = json.loads(cli(runner, "history", mini_store, "ktests", "W1/P1/slug@2024-05-02",
-                              "--format", "json").output)
+                              "--format", "json").stdout)
     assert [v["replaced_by"] for v in versions] == ["retire", "restore", None]
     assert versions[0]["reason"] == "logger drift"
 
@@ -332,6 +332,6 @@ def test_check_finds_a_well_moved_in_a_gis(mini_store, runner):
     conn.execute("UPDATE wells SET geom = ? WHERE well_id = 'W3'", (moved,))
     conn.commit()
     conn.close()
-    found = [f for f in json.loads(cli(runner, "check", mini_store, "--json").output)
+    found = [f for f in json.loads(cli(runner, "check", mini_store, "--json").stdout)
              if f["kind"] == "geometry_mismatch"]
     assert len(found) == 1 and found[0]["well_id"] == "W3" and "610250" in found[0]["message"]

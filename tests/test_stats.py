@@ -130,7 +130,7 @@ def test_cli_stats_json_matches_scipy(mini_store, runner):
     """The CLI's JSON numbers agree with scipy.stats on the same K values (converted by the exact definitions)."""
     res = cli(runner, "stats", mini_store, "--format", "json", "--k-unit", "m/s")
     assert res.exit_code == 0, res.output
-    rows = {r["unit"]: r for r in json.loads(res.output)}
+    rows = {r["unit"]: r for r in json.loads(res.stdout)}  # stdout: a note on stderr says what was left out
     # TOP tests: W1/P1 2 and 8 m/d, W2/S1 5 m/d, W4/S1 4 m/d (W4 has no picks: inferred)
     top_k = np.array([2.0, 8.0, 5.0, 4.0]) / 86400.0
     assert rows["TOP"]["n_tests"] == 4
@@ -146,18 +146,30 @@ def test_cli_stats_json_matches_scipy(mini_store, runner):
     # LOW: 10 ft/d, and 50 gpd/ft2 by the W3 override
     low_k = np.array([10 * 0.3048 / 86400, 50 * 3.785411784e-3 / 0.09290304 / 86400])
     assert rows["LOW"]["k_geomean"] == pytest.approx(sps.gmean(low_k), rel=1e-9)
-    assert rows["MID"]["n_tests"] == 2
+    # MID: W1/P2 (good) and W2/S2 (poor: left out by default, counted in n_left_out)
+    assert (rows["MID"]["n_tests"], rows["MID"]["n_left_out"]) == (1, 1)
+    assert rows["TOP"]["n_left_out"] == 0
 
 
 def test_cli_stats_table_csv_and_wells(mini_store, runner):
     res = cli(runner, "stats", mini_store, "--k-unit", "ft/d")
     assert res.exit_code == 0 and "TOP" in res.output and "ft/d" in res.output
     res = cli(runner, "stats", mini_store, "--format", "csv", "--per", "well", "--unit", "TOP")
-    lines = res.output.strip().splitlines()
+    lines = res.stdout.strip().splitlines()
     assert lines[0].startswith("unit,") and len(lines) == 2
     res = cli(runner, "stats", mini_store, "--wells", "--format", "json")
-    profiles = json.loads(res.output)
+    profiles = json.loads(res.stdout)
     w1 = {p["unit"]: p for p in profiles if p["well_id"] == "W1"}
     assert set(w1) == {"TOP", "MID", "LOW", "*"}
     res = cli(runner, "stats", mini_store, "--unit", "NOPE")
     assert res.exit_code == 2 and "NOPE" in res.output
+
+
+def test_cli_stats_wells_follow_the_selection(mini_store, runner):
+    """Per-well profiles use the same selection: the poor test of W2/S2 (0.001 cm/s) is out by default."""
+    res = cli(runner, "stats", mini_store, "--wells", "--format", "json")
+    w2 = {p["unit"] for p in json.loads(res.stdout) if p["well_id"] == "W2"}
+    assert w2 == {"TOP"} and "1 quality poor" in res.stderr  # one unit left: no '*' profile row
+    res = cli(runner, "stats", mini_store, "--wells", "--format", "json", "--include-poor")
+    w2 = {p["unit"]: p for p in json.loads(res.stdout) if p["well_id"] == "W2"}
+    assert set(w2) == {"TOP", "MID", "*"} and w2["*"]["n_zones"] == 2 and res.stderr == ""

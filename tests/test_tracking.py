@@ -136,3 +136,75 @@ def test_bad_arguments():
         track(np.zeros(3), radial_grid(half=5))
     with pytest.raises(ParameterError, match="max_step"):
         track([[0.0, 0.0]], well_in_uniform_flow)
+
+
+# -- the capture radius of a sink (hydroatlas.flow.capture_radius) -------------------------------
+def test_stagnation_distance_and_capture_width_kuo_example_6_6():
+    """source: Javandel and Tsang (1986); Kuo, Practical Design Calculations..., Example 6.6 (read):
+    K = 1000 gpd/ft2, i = 0.015, B = 80 ft, Q = 50 gpm give the stagnation point 9.6 ft downgradient and a
+    capture width of 60 ft far upstream (30 ft each side)."""
+    from hydroatlas.flow import capture_width, stagnation_distance
+
+    assert stagnation_distance(Q, B, U) == pytest.approx(9.6, abs=0.06)
+    assert capture_width(Q, B, U) == pytest.approx(60.0, abs=0.5)
+    assert capture_width(Q, B, U) == pytest.approx(2 * np.pi * stagnation_distance(Q, B, U), rel=1e-12)
+    np.testing.assert_allclose(stagnation_distance([Q, 2 * Q, 0.0], B, U), [Q / (2 * np.pi * B * U),
+                                                                          Q / (np.pi * B * U), 0.0])
+
+
+def test_capture_radius_bounds():
+    """common practice (no source): the radius is the stagnation distance, raised to a lower bound (a weak
+    well is below grid resolution) and cut to an upper bound (a strong well in a flat field)."""
+    from hydroatlas.flow import capture_radius
+
+    x0 = Q / (2 * np.pi * B * U)
+    assert capture_radius(Q, B, U, r_min=0.5, r_max=100.0) == pytest.approx(x0, rel=1e-12)
+    assert capture_radius(Q / 1000, B, U, r_min=0.5, r_max=100.0) == 0.5
+    assert capture_radius(Q, B, 0.0, r_min=0.5, r_max=100.0) == 100.0  # no regional flow: x0 is infinite
+    with pytest.raises(ParameterError, match="r_max must be >= r_min"):
+        capture_radius(Q, B, U, r_min=5.0, r_max=1.0)
+    with pytest.raises(ParameterError, match="b > 0"):
+        capture_radius(Q, 0.0, U, r_min=0.5, r_max=100.0)
+
+
+def test_disc_of_stagnation_radius_lies_in_the_capture_zone():
+    """Javandel and Tsang (1986): the capture zone's edge is nearest the well at the stagnation point, so every
+    particle released inside the disc of radius Q / (2 pi B U) is captured (exact field, tiny sink radius),
+    while one just beyond the stagnation point escapes downgradient."""
+    x0 = Q / (2 * np.pi * B * U)
+    ang = np.linspace(0, 2 * np.pi, 36, endpoint=False)
+    inside = 0.99 * x0 * np.column_stack([np.cos(ang), np.sin(ang)])
+    res = track(inside, well_in_uniform_flow, sinks=[[0.0, 0.0]], sink_radius=0.01 * x0, t_max=1e5, max_step=0.1)
+    assert (res.end_kind == "sink").all()
+    res = track([[1.01 * x0, 0.0]], well_in_uniform_flow, sinks=[[0.0, 0.0]], sink_radius=0.01 * x0, t_max=1e5,
+                max_step=0.1)
+    assert res.end_kind[0] != "sink"
+
+
+def test_capture_zone_on_a_head_grid_with_the_stagnation_radius():
+    """source: Javandel and Tsang (1986); Kuo Example 6.6 (read): on a gridded head field (uniform flow plus the
+    Thiem cone of the well) with the sink radius set by capture_radius, a particle just inside the stagnation
+    point is captured and one just beyond is not, and the captured band 3000 ft upstream is Q / (B U) = 60 ft
+    wide within 3 %."""
+    from hydroatlas.flow import capture_radius
+
+    n, cell = 0.3, 2.0
+    x0g, y0g = -3100.0, 120.0
+    xc = x0g + (np.arange(int(3200 / cell)) + 0.5) * cell
+    yc = y0g - (np.arange(int(240 / cell)) + 0.5) * cell
+    X, Y = np.meshgrid(xc, yc)
+    r = np.maximum(np.hypot(X, Y), 0.01)
+    head = 100 - I * X + Q / (2 * np.pi * K_FTD * B) * np.log(r)
+    vg = VelocityGrid.from_head(x0g, y0g, cell, head, K_FTD, n)
+    radius = capture_radius(Q, B, U, r_min=0.25 * cell, r_max=60 * cell)
+    xs = Q / (2 * np.pi * B * U)
+    assert radius == pytest.approx(xs)
+    res = track([[0.9 * xs, 0.0], [1.1 * xs, 0.0]], vg, sinks=[[0.0, 0.0]], sink_radius=radius, t_max=1e5)
+    assert res.end_kind.tolist()[0] == "sink" and res.end_kind.tolist()[1] != "sink"
+    ys = np.linspace(0.0, 40.0, 161)
+    res = track(np.column_stack([np.full(ys.size, -3000.0), ys]), vg, sinks=[[0.0, 0.0]], sink_radius=radius,
+                t_max=1e6)
+    caught = res.end_kind == "sink"
+    assert caught[0] and not caught[-1]
+    half = ys[caught].max() + 0.5 * (ys[1] - ys[0])
+    assert 2 * half == pytest.approx(Q / (B * U), rel=0.03)

@@ -279,7 +279,17 @@ def logk_distribution(stem, values, stats, *, k_unit="m/d") -> list[Path]:
     return _render(stem, draw, figsize=(max(5.0, 1.1 * len(order) + 2.5), 5.0))
 
 
-def variogram_fit(stem, experimental, model_params, *, title="") -> list[Path]:
+def _squared(unit: str) -> str:
+    """Unit of a semivariance from that of the values: 'ft' -> 'ft²'; 'log10(ft/d)' -> '(log10 K)², K in ft/d'."""
+    unit = str(unit or "").strip()
+    if not unit:
+        return ""
+    if unit.startswith("log10(") and unit.endswith(")"):
+        return f"(log10 K)², K in {unit[6:-1]}"
+    return f"{unit}²" if unit.isalnum() else f"({unit})²"
+
+
+def variogram_fit(stem, experimental, model_params, *, title="", distance_unit="", value_unit="") -> list[Path]:
     """Experimental semivariances and the fitted variogram model.
 
     Parameters
@@ -287,14 +297,20 @@ def variogram_fit(stem, experimental, model_params, *, title="") -> list[Path]:
     stem : path-like
         Output path without suffix.
     experimental : dict
-        lags, gamma, counts (equal-length lists; lags in map units), optional
-        max_lag. Marker area grows with the pair count.
+        lags, gamma, counts (equal-length lists; lags in ``distance_unit``),
+        optional max_lag. Marker area grows with the pair count.
     model_params : dict
         model ('spherical', 'exponential' or 'gaussian'), nugget, sill (total),
         range (practical). The curve is drawn from 0 to the largest lag (or
         max_lag), with gamma(0) = 0 and the nugget as the jump just after 0.
     title : str
         Figure title (default "Variogram").
+    distance_unit : str
+        Unit of lags and range: the CRS's linear unit, e.g. 'm', 'ft' or 'ftUS' (the label says
+        "CRS units" when not given).
+    value_unit : str
+        Unit of the values, e.g. 'ft' for heads or 'log10(ft/d)' for log K; semivariance, nugget and
+        sill are in its square.
 
     Returns
     -------
@@ -324,6 +340,10 @@ def variogram_fit(stem, experimental, model_params, *, title="") -> list[Path]:
     if not rng > 0:
         raise ParameterError(f"variogram_fit: range must be > 0; got {rng}")
 
+    dist = str(distance_unit or "").strip() or "CRS units"
+    sq = _squared(value_unit)
+    sq_suffix = f" {sq}" if sq and not sq.startswith("(log10") else (f" ({sq})" if sq else "")
+
     def draw(fig, ax):
         hmax = float(experimental.get("max_lag") or np.nanmax(lags))
         h = np.concatenate([[0.0], np.linspace(hmax * 1e-6, hmax, 400)])
@@ -333,16 +353,18 @@ def variogram_fit(stem, experimental, model_params, *, title="") -> list[Path]:
         curve, = ax.plot(h, gamma_values(h, model, nugget, sill, rng), color=VERMILLION, linewidth=2, zorder=4,
                          label=f"{model} model")
         curve.set_gid("variogram-model")
-        ax.axhline(sill, color="#555555", linestyle="--", linewidth=0.9, zorder=1, label=f"sill = {sill:.4g}")
-        ax.axhline(nugget, color="#555555", linestyle=":", linewidth=1.1, zorder=1, label=f"nugget = {nugget:.4g}")
+        ax.axhline(sill, color="#555555", linestyle="--", linewidth=0.9, zorder=1,
+                   label=f"sill = {sill:.4g}{sq_suffix}")
+        ax.axhline(nugget, color="#555555", linestyle=":", linewidth=1.1, zorder=1,
+                   label=f"nugget = {nugget:.4g}{sq_suffix}")
         beyond = "" if rng <= hmax else " (beyond the largest lag)"
         ax.axvline(min(rng, hmax), color=GREEN, linestyle="--" if not beyond else "none", linewidth=0.9,
-                   zorder=1, label=f"practical range = {rng:.4g}{beyond}")
+                   zorder=1, label=f"practical range = {rng:.4g} {dist}{beyond}")
         ax.set_xlim(0, hmax * 1.03)
         ax.set_ylim(0, max(float(np.nanmax(gam)), sill) * 1.15)
         ax.legend(loc="best", fontsize=7, framealpha=0.9)
-        ax.set_xlabel("Lag distance (map units)")
-        ax.set_ylabel("Semivariance γ(h)")
+        ax.set_xlabel(f"Lag distance ({dist})")
+        ax.set_ylabel(f"Semivariance γ(h) ({sq})" if sq else "Semivariance γ(h)")
         ax.set_title(title or "Variogram")
         ax.grid(True, color="#EEEEEE", linewidth=0.6, zorder=0)
 

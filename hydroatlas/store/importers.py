@@ -34,13 +34,13 @@ TABLE_OF = {"slugtests": "slug_records", "sluggeometry": "slug_geometry"}
 
 REQUIRED = {
     "units": ("code", "name", "rank", "role"),
-    "wells": ("well_id", "x", "y", "ground_elev"),
+    "wells": ("well_id", "ground_elev"),  # and one pair of COORDINATE_COLUMNS
     "picks": ("well_id", "unit", "top_depth", "bottom_depth"),
     "zones": ("well_id", "zone_id", "top_depth", "bottom_depth"),
     "ktests": ("well_id", "zone_id", "tested_on", "method", "k", "k_unit"),
     "heads": ("well_id", "zone_id", "measured_at"),
     "pumping": ("well_id", "rate", "rate_unit", "start"),
-    "springs": ("spring_id", "x", "y", "elev"),
+    "springs": ("spring_id", "elev"),  # and one pair of COORDINATE_COLUMNS
     "discharge": ("spring_id", "measured_at", "discharge", "rate_unit"),
     "areas": ("area_id", "kind"),
     "slugtests": ("well_id", "zone_id", "test_id", "t_s", "displacement"),
@@ -48,13 +48,13 @@ REQUIRED = {
 }
 OPTIONAL = {
     "units": ("parent",),
-    "wells": ("total_depth", "kind", "name"),
+    "wells": ("x", "y", "lon", "lat", "longitude", "latitude", "total_depth", "kind", "name"),
     "picks": (),
     "zones": ("kind", "unit"),
     "ktests": ("quality", "source", "test_id"),
     "heads": ("head", "depth_to_water", "ref_elev", "quality"),
     "pumping": ("zone_id", "end"),
-    "springs": ("name", "unit"),
+    "springs": ("x", "y", "lon", "lat", "longitude", "latitude", "name", "unit"),
     "discharge": (),
     "areas": ("unit",),
     "slugtests": (),
@@ -63,7 +63,12 @@ OPTIONAL = {
 # Head given together with ref_elev - depth_to_water must agree to this, in the store's length unit.
 HEAD_CONSISTENCY_TOL = 0.01
 #: optional input columns that are not kept-when-absent values (keys, or values always written together)
-_ALWAYS_WRITTEN = {"heads": {"head", "depth_to_water", "ref_elev"}, "ktests": {"test_id"}, "pumping": {"zone_id"}}
+_ALWAYS_WRITTEN = {"heads": {"head", "depth_to_water", "ref_elev"}, "ktests": {"test_id"}, "pumping": {"zone_id"},
+                   "wells": {"x", "y"}, "springs": {"x", "y"}}
+#: the coordinate columns a point file (wells, springs) may have, one pair of them: x, y in the store CRS (or
+#: --input-crs); lon, lat or longitude, latitude in degrees, WGS 84 (EPSG:4326) unless --input-crs says otherwise
+COORDINATE_COLUMNS = (("x", "y"), ("lon", "lat"), ("longitude", "latitude"))
+GEOGRAPHIC_INPUT = "EPSG:4326"
 #: a unit code: letters, digits, '-', '_' and '.', not starting with '.' (codes name output files)
 UNIT_CODE = re.compile(r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$")
 MAX_RANK = 10_000
@@ -196,41 +201,68 @@ def _exists(cells: Cells, values: pd.DataFrame, known: pd.DataFrame, column: str
 
 
 # -- coordinates ---------------------------------------------------------------
+def _coordinate_columns(cells: Cells) -> tuple[str, str]:
+    """The one pair of :data:`COORDINATE_COLUMNS` the file has; ImportDataError for none, both or half a pair."""
+    found = [pair for pair in COORDINATE_COLUMNS if cells.has(pair[0]) or cells.has(pair[1])]
+    if not found:
+        raise ImportDataError("missing coordinate columns: give x and y (store CRS, or --input-crs), or lon and "
+                              "lat (or longitude and latitude, in degrees, WGS 84)", file=cells.file, row=0,
+                              column="x")
+    if len(found) > 1:
+        names = " and ".join("/".join(p) for p in found)
+        raise ImportDataError(f"the header has two sets of coordinates ({names}); keep one pair of columns",
+                              file=cells.file, row=0, column=found[1][0])
+    pair = found[0]
+    for have, other in (pair, pair[::-1]):
+        if not cells.has(other):
+            raise ImportDataError(f"missing column {other} (column {have} needs it)", file=cells.file, row=0,
+                                  column=other)
+    return pair
+
+
 def _coordinates(cells: Cells, store: Store, crs_in: CRS | None):
-    """x, y in the store CRS, plus the input values when they were reprojected."""
-    x = cells.number("x")
-    y = cells.number("y")
+    """x, y in the store CRS, plus the input values when they were reprojected.
+
+    The columns are x, y (store CRS, or ``crs_in``), or lon, lat / longitude, latitude (WGS 84 degrees
+    unless ``crs_in`` is given).
+    """
+    cx, cy = _coordinate_columns(cells)
+    x = cells.number(cx)
+    y = cells.number(cy)
     crs_store = store.settings.crs
+    if crs_in is None and cx != "x":
+        crs_in = CRS.from_user_input(GEOGRAPHIC_INPUT)
     source = crs_in or crs_store
-    _check_not_degrees(cells, x, y, source)
-    _check_in_crs(cells, x, y, source)
+    _check_not_degrees(cells, x, y, source, column=cx)
+    _check_in_crs(cells, x, y, source, column=cx)
     if crs_in is None or crs_in == crs_store:
         return x, y, None
-    xs, ys = _transform(cells, x, y, crs_in, crs_store)
-    _check_in_crs(cells, xs, ys, crs_store, after=crs_in)
+    xs, ys = _transform(cells, x, y, crs_in, crs_store, column=cx)
+    _check_in_crs(cells, xs, ys, crs_store, after=crs_in, column=cx)
     return xs, ys, (x, y, crs_in.to_string())
 
 
-def _transform(cells: Cells, x, y, crs_in: CRS, crs_out: CRS):
+def _transform(cells: Cells, x, y, crs_in: CRS, crs_out: CRS, *, column: str = "x"):
     tr = Transformer.from_crs(crs_in, crs_out, always_xy=True)
     xs, ys = tr.transform(x, y)
     xs, ys = np.asarray(xs, float), np.asarray(ys, float)
-    cells.fail(~np.isfinite(xs) | ~np.isfinite(ys), "x",
+    cells.fail(~np.isfinite(xs) | ~np.isfinite(ys), column,
                f"the point cannot be transformed from {crs_in.name} to the store CRS {crs_out.name}")
     return xs, ys
 
 
-def _check_not_degrees(cells: Cells, x, y, crs: CRS):
+def _check_not_degrees(cells: Cells, x, y, crs: CRS, *, column: str = "x"):
     """A projected CRS with every point within +-180, +-90 is almost surely longitude/latitude given as metres."""
     if crs.is_geographic or len(x) == 0:
         return
     if np.all(np.abs(x) <= 180) and np.all(np.abs(y) <= 90):
-        cells.fail(np.ones(len(x), bool), "x",
+        cells.fail(np.ones(len(x), bool), column,
                    f"x and y look like longitude/latitude in degrees, but {crs.name} is in "
-                   f"{crs.axis_info[0].unit_name}s; give --input-crs EPSG:4326 (x = longitude, y = latitude)")
+                   f"{crs.axis_info[0].unit_name}s; give --input-crs EPSG:4326 (x = longitude, y = latitude), "
+                   "or name the columns lon and lat")
 
 
-def _check_in_crs(cells: Cells, x, y, crs: CRS, *, after: CRS | None = None):
+def _check_in_crs(cells: Cells, x, y, crs: CRS, *, after: CRS | None = None, column: str = "x"):
     """Refuse coordinates that are not finite or fall outside the CRS's area of use (no slack)."""
     if crs.is_geographic:
         lon, lat = x, y
@@ -260,7 +292,7 @@ def _check_in_crs(cells: Cells, x, y, crs: CRS, *, after: CRS | None = None):
                  f"CRS {crs.name}{area}; check x and y (swapped? wrong --input-crs?)" if after is not None else
                  f"coordinates ({x[i]:.6g}, {y[i]:.6g}) are not valid in {crs.name}{area}; "
                  "check x and y (swapped?) or give --input-crs")
-        cells.fail(bad, "x", where)
+        cells.fail(bad, column, where)
 
 
 # -- kinds ---------------------------------------------------------------------

@@ -15,9 +15,15 @@ from .store_jobs import (
     CAUTION, _crs_to_m, _length_to_m, _unit_members, tests_with_units, unit_stats, zone_assignment,
 )
 from .surfaces import (
-    _domain_polygons, make_interpolator, read_surface, surface_points, unit_intervals, verticals,
+    _domain_polygons, make_interpolator, read_surface, surface_points, unit_intervals, unit_presence_of, verticals,
 )
-from .pathways import KARST_WARNING, active_pumping
+from .pathways import KARST_WARNING, active_pumping, drawdown_layers
+from ..selection import (
+    DEFAULT_TOLERANCE_DAYS, SelectionPolicy, describe, select_ktests, select_readings, selection_record,
+    sidecar_selection,
+)
+from .store_jobs import unit_stats_selected
+from .store_jobs import store_k_unit
 
 
 # -- maps and GIS layers (SPEC 2.12) ------------------------------------------------
@@ -52,16 +58,35 @@ def contour_lines(grid, values, levels, crs):
     return gpd.GeoDataFrame(rows, columns=["level", "geometry"], geometry="geometry", crs=crs)
 
 
-def well_summaries(store: Store, *, k_unit: str = "m/d") -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Per well and unit: geometric-mean K and test count; per zone: unit, elevations, K and latest head."""
+def _rate_text(q_m3d: float, rate_unit: str) -> str:
+    """A pumping rate for a map label in the store's rate unit; a feet store also shows gpm."""
+    from ..quantities import convert
+
+    def shown(v):
+        return f"{v:,.0f}" if abs(v) >= 100 else f"{v:.3g}"
+
+    text = f"{shown(convert(q_m3d, 'm3/d', rate_unit, 'rate'))} {rate_unit}"
+    if rate_unit == "ft3/d":
+        text += f" ({shown(convert(q_m3d, 'm3/d', 'gpm', 'rate'))} gpm)"
+    return text
+
+
+def well_summaries(store: Store, *, k_unit: str | None = None,
+                   policy: SelectionPolicy | None = None) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Per well and unit: geometric-mean K and test count; per zone: unit, elevations, K and latest head.
+
+    K tests and head readings follow the selection policy (None: the default); the per-zone frame's
+    ``attrs["selection"]`` holds the policy and what it left out. K in ``k_unit`` (default: the store's).
+    """
     from ..quantities import k_from_ms
 
+    k_unit = store_k_unit(store, k_unit)
     asg = zone_assignment(store)
-    tests = tests_with_units(store, asg)
+    tests, tests_out = select_ktests(store, policy, asg)
     lg = np.log10(tests["k_ms"].to_numpy(float))
     per_zone = pd.DataFrame({"well_id": tests["well_id"], "zone_id": tests["zone_id"], "lg": lg}) \
         .groupby(["well_id", "zone_id"]).agg(lg=("lg", "mean"), n_tests=("lg", "size")).reset_index()
-    heads = store.read("heads", ["well_id", "zone_id", "measured_at", "head"])
+    heads, heads_out = select_readings(store, policy)
     latest = heads.sort_values("measured_at").groupby(["well_id", "zone_id"]).tail(1) \
         .rename(columns={"measured_at": "latest_head_at", "head": "latest_head"})
     zones = asg.merge(per_zone, on=["well_id", "zone_id"], how="left").merge(latest, on=["well_id", "zone_id"],
@@ -71,15 +96,19 @@ def well_summaries(store: Store, *, k_unit: str = "m/d") -> tuple[pd.DataFrame, 
     per_unit = zones.dropna(subset=["lg", "unit"]).groupby(["well_id", "unit"]).agg(
         lg=("lg", "mean"), n_tests=("n_tests", "sum")).reset_index()
     per_unit["k"] = k_from_ms(10 ** per_unit["lg"].to_numpy(float), k_unit)
-    return per_unit, zones.drop(columns=["lg"])
+    zones = zones.drop(columns=["lg"])
+    zones.attrs["selection"] = selection_record(policy, tests_out + heads_out)
+    return per_unit, zones
 
 
-def export_layers(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") -> dict:
+def export_layers(store: Store, *, out=".", surfaces=None, k_unit: str | None = None,
+                  policy: SelectionPolicy | None = None) -> dict:
     """Vector layers to OUT/layers.gpkg and OUT/geojson/<layer>.geojson (RFC 7946, WGS 84).
 
     wells (with per-unit geometric-mean K and test counts as columns), zones (points at
     mid-depth), head contours of every head surface found, and the flow_arrows, pathlines and
-    contributing_areas layers already written by `surface` and `paths`.
+    contributing_areas layers already written by `surface` and `paths`. K and latest heads follow the
+    selection policy (None: the default).
     """
     import geopandas as gpd
     import pyogrio
@@ -89,7 +118,8 @@ def export_layers(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") 
     out = Path(out)
     folder = Path(surfaces) if surfaces is not None else out
     crs = store.settings.crs
-    per_unit, zones = well_summaries(store, k_unit=k_unit)
+    k_unit = store_k_unit(store, k_unit)  # default: the store's K unit
+    per_unit, zones = well_summaries(store, k_unit=k_unit, policy=policy)
     wells = store.read("wells", ["well_id", "x", "y", "ground_elev", "total_depth", "kind", "name"])
     codes = list(store.read("units").sort_values("rank")["code"])
     for code in codes:
@@ -130,9 +160,56 @@ def export_layers(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") 
     return files
 
 
-def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces=None, k_unit: str = "m/d",
-              tiles: str | None = None) -> Path:
+def unit_extent_outline(store: Store, unit: str, units: pd.DataFrame | None = None):
+    """The extent of a unit from the picks as a one-row GeoDataFrame (store CRS), or None where it is everywhere.
+
+    Clipped to the domain polygon when there is one, else to the wells' bounding box grown by a tenth
+    of its larger side. An empty extent (no well shows the unit) gives None as well.
+    """
+    import geopandas as gpd
+    import shapely
+
+    pres = unit_presence_of(store, unit, units)
+    domain = _domain_polygons(store, unit)
+    if domain is not None:
+        clip = domain.union_all()
+    elif len(pres):
+        x0, y0 = pres[["x", "y"]].min().to_numpy(float)
+        x1, y1 = pres[["x", "y"]].max().to_numpy(float)
+        pad = 0.1 * max(x1 - x0, y1 - y0, 1.0)
+        clip = shapely.box(x0 - pad, y0 - pad, x1 + pad, y1 + pad)
+    else:
+        return None
+    geom = assign.presence_extent(pres, clip=clip)
+    if geom is None or geom.is_empty:
+        return None
+    rule = "nearest well with picks has the unit"
+    return gpd.GeoDataFrame({"unit": [unit], "rule": [rule]}, geometry=[geom], crs=store.settings.crs)
+
+
+def default_map_unit(store: Store, units: pd.DataFrame | None = None) -> str:
+    """The unit a map shows when none is named: the aquifer with the most zones with heads.
+
+    Ties go to the upper aquifer; with no heads in any aquifer, the top aquifer; with no aquifer, the
+    top unit. A unit on top that is present in part of the area (and so has few heads) is not chosen
+    just because it is on top.
+    """
+    units = (store.read("units") if units is None else units).sort_values("rank")
+    aquifers = [c for c in units.loc[units["role"] == "aquifer", "code"]]
+    if not aquifers:
+        return units["code"].iloc[0]
+    with_heads = store.read("heads", ["well_id", "zone_id"]).drop_duplicates()
+    zones = with_heads.merge(zone_assignment(store)[["well_id", "zone_id", "unit"]], on=["well_id", "zone_id"])
+    counts = {c: int(zones["unit"].isin(_unit_members(units, c)).sum()) for c in aquifers}
+    return max(aquifers, key=lambda c: (counts[c], -aquifers.index(c)))
+
+
+def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces=None, k_unit: str | None = None,
+              tiles: str | None = None, policy: SelectionPolicy | None = None) -> Path:
     """One self-contained HTML map of the store and of the results found in ``surfaces``.
+
+    Well K and latest heads follow the selection policy (None: the default); the map's notes say what it
+    left out.
 
     Imported texts (ids, names, codes, extra attributes, the vertical datum) are handed to the helpers of
     :mod:`hydroatlas.export.webmap` as plain text; they escape them. No HTML is written here.
@@ -146,20 +223,20 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
     from ..export.webmap import (K_COLORMAP, TIME_COLORMAP, arrow_svg, attribute_pairs, feature_tooltip,
                                 geojson_text, hex_colors, label_icon, legend_html, table_popup, text_tooltip,
                                 write_webmap)
-    from ..quantities import normalize_unit
+    from ..quantities import store_units
 
-    k_unit = normalize_unit(k_unit, "hydraulic conductivity")
+    k_unit = store_k_unit(store, k_unit)  # default: the store's K unit
+    rate_unit = store_units(store.settings.length_unit).rate
     crs = store.settings.crs
     units = store.read("units").sort_values("rank")
     if unit is None:
-        aquifers = units[units["role"] == "aquifer"]["code"]
-        unit = aquifers.iloc[0] if len(aquifers) else units["code"].iloc[0]
+        unit = default_map_unit(store, units)
     _unit_members(units, unit)
     out = Path(out)
     folder = Path(surfaces) if surfaces is not None else out.parent
     L = store.settings.length_unit
     datum = store.settings.vertical_datum
-    per_unit, zones = well_summaries(store, k_unit=k_unit)
+    per_unit, zones = well_summaries(store, k_unit=k_unit, policy=policy)
     wells = store.read("wells", ["well_id", "x", "y", "kind", "name", "attrs"])
     wells = wells.merge(per_unit[per_unit["unit"] == unit][["well_id", "k", "n_tests"]], on="well_id", how="left")
     wgs = gpd.GeoDataFrame(wells, geometry=gpd.points_from_xy(wells["x"], wells["y"]), crs=crs).to_crs(4326)
@@ -248,7 +325,7 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
             for geom, wid, q in zip(pg.geometry, pg["well_id"], pg["rate_m3d"]):
                 folium.CircleMarker([geom.y, geom.x], radius=float(5 + 14 * np.sqrt(q / qmax)), color="#8c2d04",
                                     weight=2, fill=True, fill_color="#fdae6b", fill_opacity=0.6,
-                                    tooltip=text_tooltip(f"{wid}: {q:.0f} m3/d")).add_to(group)
+                                    tooltip=text_tooltip(f"{wid}: {_rate_text(q, rate_unit)}")).add_to(group)
         layers.append(("Pumping wells (size by rate)", add_pumping))
     springs = store.read("springs")
     if not springs.empty:
@@ -275,9 +352,22 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
                            tooltip=feature_tooltip(["area_id", "details"], ["recharge area", "attributes"])
                            ).add_to(group)
         layers.append(("Recharge areas", add_recharge))
+    extent = unit_extent_outline(store, unit, units)
+    if extent is not None:
+        data = geojson_text(extent)
+
+        def add_extent(group, data=data):
+            folium.GeoJson(data, style_function=lambda f: {"color": "#7a4a12", "weight": 2.5, "dashArray": "8 4",
+                                                           "fill": False},
+                           tooltip=feature_tooltip(["unit", "rule"], ["extent of unit", "from the picks"])
+                           ).add_to(group)
+        layers.append((f"Extent of {unit} (from the picks)", add_extent))
     if "pathlines" in have:
         pl = pyogrio.read_dataframe(gpkg, layer="pathlines")
-        pl = pl[(pl["unit"] == unit) & (pl["direction"] == "forward")].to_crs(4326)
+        pl = pl[(pl["unit"] == unit) & (pl["direction"] == "forward")]
+        if "scenario" in pl.columns:  # the baseline's pathlines; a scenario's are in its own table and layer rows
+            pl = pl[pl["scenario"].fillna("") == ""]
+        pl = pl.to_crs(4326)
         if len(pl):
             years = pl["travel_years"].to_numpy(float)
             t0, t1 = float(np.nanmin(years)), float(np.nanmax(years))
@@ -293,6 +383,8 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
     if "contributing_areas" in have:
         ca = pyogrio.read_dataframe(gpkg, layer="contributing_areas")
         ca = ca[(ca["unit"] == unit) & ~ca.geometry.is_empty]
+        if "scenario" in ca.columns:
+            ca = ca[ca["scenario"].fillna("") == ""]
         if len(ca):
             data = geojson_text(ca[["spring_id", "geometry"]])
 
@@ -301,37 +393,49 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
                                                                "fillOpacity": 0.08},
                                tooltip=feature_tooltip(["spring_id"], ["contributing area of"])).add_to(group)
             layers.append(("Contributing areas", add_ca))
-    if unit_path(folder, unit, "drawdown.tif").is_file():
-        dgrid, dd = read_surface(folder, unit, "drawdown", store.location)
-        levels = [v for v in (0.1, 0.25, 0.5, 1, 2, 5, 10, 20, 50) if np.nanmax(dd) > v]
+    for label, tail in drawdown_layers(folder, unit):  # the unnamed scenario and each named one
+        dgrid, dd = read_surface(folder, unit, tail, store.location)
+        steps = (0.1, 0.25, 0.5, 1, 2, 5, 10, 20, 50)
+        levels = [v for v in steps if np.nanmax(dd) > v] + [-v for v in steps if np.nanmin(dd) < -v]
         dcont = contour_lines(dgrid, dd, levels, crs).to_crs(4326)
 
-        def add_dd(group):
+        def add_dd(group, dcont=dcont):
             for geom, level in zip(dcont.geometry, dcont["level"]):
-                folium.PolyLine([(y, x) for x, y in geom.coords], color="#b30000", weight=1.5, dash_array="6 4",
-                                tooltip=text_tooltip(f"drawdown {level:g} {L}")).add_to(group)
+                text = f"drawdown {level:g} {L}" if level > 0 else f"recovery {-level:g} {L}"
+                folium.PolyLine([(y, x) for x, y in geom.coords], color="#b30000" if level > 0 else "#2b8cbe",
+                                weight=1.5, dash_array="6 4", tooltip=text_tooltip(text)).add_to(group)
         if len(dcont):
-            layers.append(("Drawdown of the last scenario", add_dd))
+            layers.append((label, add_dd))
     cautions = [CAUTION, KARST_WARNING]
     unit_name = units.set_index("code").loc[unit, "name"]
     title = f"hydroatlas: {unit}" + (f" ({unit_name})" if isinstance(unit_name, str) and unit_name != unit else "")
     notes = [f"Elevations and heads in {L} above the vertical datum: {datum}"]
+    notes += [f"Well K and latest heads: {text}" for _, text in describe(zones.attrs["selection"]["left_out"])]
     return write_webmap(out, title=title, center=center, layers=layers, legends=legends, cautions=cautions,
                         notes=notes, tiles=tiles)
 
 
-def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") -> list[Path]:
-    """PNG and SVG figures: head profiles of multi-zone wells, log K per unit, variogram fits, cross-validation."""
+def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str | None = None,
+                 policy: SelectionPolicy | None = None) -> list[Path]:
+    """PNG and SVG figures: head profiles of multi-zone wells, log K per unit, variogram fits, cross-validation.
+
+    Profiles and K distributions follow the selection policy (None: the default); the cross-validation of a
+    surface uses the policy recorded in that surface's sidecar, so its points are those the surface used.
+    """
     import json
 
     from ..export import figures
     from ..interp import Variogram, crossval
 
+    from ..quantities import crs_unit_label
+
+    k_unit = store_k_unit(store, k_unit)  # default: the store's K unit
+    distance_unit = crs_unit_label(store.settings.crs.axis_info[0].unit_name)
     out = ensure_folder(out)
     folder = Path(surfaces) if surfaces is not None else out
     written: list[Path] = []
     units = store.read("units")
-    pairs, profiles = verticals(store)
+    pairs, profiles = verticals(store, policy=policy)
     if not profiles.empty:
         allp = unit_intervals(store, units).merge(units[["code", "role"]].rename(columns={"code": "unit"}),
                                                   on="unit")
@@ -339,14 +443,14 @@ def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") -
             written += figures.head_profile(output_path(out, f"profile_{file_stem(well)}"), well, zones,
                                             allp[allp["well_id"] == well], pairs[pairs["well_id"] == well],
                                             length_unit=store.settings.length_unit)
-    tests = tests_with_units(store)
+    tests = tests_with_units(store, policy=policy)
     tests = tests[tests["unit"].notna()]
     if not tests.empty:
         from ..quantities import k_from_ms
 
         values = pd.DataFrame({"unit": tests["unit"], "log10k": np.log10(k_from_ms(tests["k_ms"].to_numpy(float),
                                                                                     k_unit))})
-        rows = [r for r in unit_stats(store, k_unit=k_unit) if r["n_tests"]]
+        rows = [r for r in unit_stats(store, k_unit=k_unit, policy=policy) if r["n_tests"]]
         written += figures.logk_distribution(out / "logk_by_unit", values, rows, k_unit=k_unit)
     for side_path in sorted(folder.glob("*_*.json")):
         if side_path.name.startswith("."):  # a temporary file of an interrupted writer
@@ -358,9 +462,14 @@ def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str = "m/d") -
         stem = file_stem(side_path.stem)
         if v.get("experimental"):
             written += figures.variogram_fit(output_path(out, f"variogram_{stem}"), v["experimental"], v,
-                                             title=f"{side['unit']} {side['quantity']}")
+                                             title=f"{side['unit']} {side['quantity']}",
+                                             distance_unit=side.get("distance_unit") or distance_unit,
+                                             value_unit=side.get("value_unit") or "")
         xy, z, _, info = surface_points(store, side["unit"], side["quantity"], window=side.get("window"),
-                                        at=side.get("at"), lower_unit=side.get("lower_unit"))
+                                        at=side.get("at"), lower_unit=side.get("lower_unit"),
+                                        policy=SelectionPolicy.from_dict((side.get("selection") or {}).get("policy")),
+                                        tolerance_days=(DEFAULT_TOLERANCE_DAYS if side.get("tolerance_days") is None
+                                                        else side["tolerance_days"]))
         vario = Variogram(v["model"], nugget=v["nugget"], sill=v["sill"], range=v["range"], angle=v.get("angle", 0),
                           ratio=v.get("ratio", 1))
         model, _ = make_interpolator(side["method"], xy, z, variogram=v["model"], nugget=vario.nugget,
@@ -378,8 +487,13 @@ MODEL_MAX_CELLS = 20_000_000
 
 def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=None, rotation: float = 0.0,
                layers: list[str] | None = None, kv_ratio: float = 10.0, k_source: str = "mean",
-               min_thickness: float = 1.0, surfaces=None, max_cells: int | None = None) -> dict:
+               min_thickness: float = 1.0, surfaces=None, max_cells: int | None = None,
+               policy: SelectionPolicy | None = None) -> dict:
     """A regular model grid with one layer per unit: tops, bottoms, K_h, K_v, starting heads and an active mask.
+
+    The K tests behind the layer K follow the selection policy (None: the default); manifest.json holds it
+    under ``selection``, and the selections of the head surfaces used for starting heads under
+    ``head_surface_selections``.
 
     Parameters
     ----------
@@ -403,7 +517,9 @@ def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=
 
     Layer geometry: the ground surface and each unit's thickness are interpolated (inverse-distance
     weighting, exact at wells) from the picks; a unit counts as zero thickness at wells whose picks
-    cover the units above and below it but not it (pinched out there); picks ending at a well's total
+    show it absent (:func:`hydroatlas.assign.unit_presence`) and in every cell outside its extent
+    (nearer to such a well than to one that has it): those cells are flagged pinched, and the manifest's
+    grid ``cells_outside_unit_extent`` counts them per layer; picks ending at a well's total
     depth do not give a thickness. Layers are stacked downward from the ground, so each top equals the
     bottom of the layer above.
     """
@@ -485,6 +601,7 @@ def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=
     known_base = ~(p["bottom_depth"] >= p["total_depth"] - 1e-6)
     p["thickness"] = p["bottom_depth"] - p["top_depth"]
     tops, bottoms, pinched = [], [], []
+    outside_extent = {}
     current = ground.copy()
     for code in layers:
         here = p[(p["unit"] == code) & known_base]
@@ -492,15 +609,17 @@ def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=
             here = p[p["unit"] == code]
         xy = here[["x", "y"]].to_numpy(float)
         b = here["thickness"].to_numpy(float)
-        # wells whose picks bracket the unit (a unit above and below it) but lack it: zero thickness there
-        by_well = p.groupby("well_id")["unit"].agg(set)
-        absent = [w for w, us in by_well.items() if code not in us
-                  and any(rank[x] < rank[code] for x in us) and any(rank[x] > rank[code] for x in us)]
-        if absent:
-            aw = wells.set_index("well_id").loc[absent]
+        # wells whose picks show the unit absent (assign.unit_presence): zero thickness there, and zero
+        # in every cell outside the unit's extent (nearer to such a well than to one that has the unit)
+        presence = unit_presence_of(store, code, units)
+        aw = presence[presence["present"].eq(False).fillna(False).to_numpy(bool)]
+        if len(aw):
             xy = np.vstack([xy, aw[["x", "y"]].to_numpy(float)])
             b = np.concatenate([b, np.zeros(len(aw))])
         thick = IDW(2.0, neighbors=12).fit(xy, b).predict(pts).reshape(nrow, ncol)
+        outside = ~assign.inside_extent(presence, pts).reshape(nrow, ncol)
+        outside_extent[code] = int((outside & active).sum())
+        thick = np.where(outside, 0.0, thick)
         thin = thick < min_thickness
         thick = np.where(thin, min_thickness, thick)
         tops.append(current)
@@ -510,15 +629,18 @@ def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=
     top, bottom = np.array(tops), np.array(bottoms)
     # hydraulic conductivity (length unit per day)
     len_per_m = 1.0 / _length_to_m(store)
-    stats_rows = {r["unit"]: r for r in unit_stats(store, k_unit="m/d")}
+    rows, k_selection = unit_stats_selected(store, k_unit="m/d", policy=policy)
+    stats_rows = {r["unit"]: r for r in rows}
     folder = Path(surfaces) if surfaces is not None else Path(out).parent
     kh, kv = [], []
     for code in layers:
         if stats_rows[code]["k_geomean"] is None:
             raise InsufficientDataError(f"unit {code} has no K tests; its layer K is unknown")
         if k_source == "surface":
-            grid_s, logk = read_surface(folder, code, "logk", store.location)
-            k_md = 10.0 ** _sample_grid(grid_s, logk, pts).reshape(nrow, ncol)
+            from .surfaces import read_logk_m_per_d
+
+            grid_s, k_surface_md, _ = read_logk_m_per_d(folder, code, store)  # the surface's K unit -> m/d
+            k_md = 10.0 ** _sample_grid(grid_s, np.log10(k_surface_md), pts).reshape(nrow, ncol)
             k_md = np.where(np.isfinite(k_md), k_md, stats_rows[code]["k_geomean"])
         else:
             k_md = np.full((nrow, ncol), stats_rows[code]["k_geomean"])
@@ -559,7 +681,8 @@ def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=
               "start_head": start, "pinched": np.array(pinched), "head_borrowed": np.array(borrowed)}
     grid_info = {"origin": [x0, y0], "origin_is": "lower-left corner", "cell": cell, "rows": nrow, "cols": ncol,
                  "rotation": rotation, "rotation_is": "degrees counter-clockwise about the origin",
-                 "min_thickness": min_thickness, "kv_ratio": kv_ratio, "k_source": k_source}
+                 "min_thickness": min_thickness, "kv_ratio": kv_ratio, "k_source": k_source,
+                 "cells_outside_unit_extent": outside_extent}
     from datetime import datetime, timezone
 
     history = (f"{datetime.now(timezone.utc).isoformat(timespec='seconds')} hydroatlas model_grid(cell={cell}, "
@@ -569,8 +692,18 @@ def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=
     files = write_model_grid(out, arrays=arrays, active=active, x=xc, y=yc, layer_units=list(layers),
                              crs_wkt=store.settings.crs.to_wkt(), length_unit=L, grid_info=grid_info,
                              history=history, source=source, caution=CAUTION)
+    # the manifest is the grid's sidecar: say which K tests and head readings the layers rest on
+    import json
+
+    from ..export.rasters import write_sidecar
+
+    manifest = json.loads(Path(files["manifest"]).read_text())
+    manifest["selection"] = k_selection
+    manifest["head_surface_selections"] = {code: sidecar_selection(unit_path(folder, code, "head.json"))
+                                           for code, ok in zip(layers, have) if ok}
+    write_sidecar(files["manifest"], manifest)
     return {"files": files, "layers": list(layers), "shape": (len(layers), nrow, ncol), "arrays": arrays,
-            "active": active, "x": xc, "y": yc, "grid": grid_info}
+            "active": active, "x": xc, "y": yc, "grid": grid_info, "selection": k_selection}
 
 
 def _sample_grid(grid, values, pts) -> np.ndarray:

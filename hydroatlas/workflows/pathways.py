@@ -7,10 +7,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..errors import InsufficientDataError, ParameterError
+from ..errors import HydroatlasError, InsufficientDataError, ParameterError
 from ..export.names import ensure_folder, unit_path, write_csv
 from ..store import Store
 from .store_jobs import CAUTION, _crs_to_m, _length_to_m, _unit_members, unit_stats, zone_assignment
+from .store_jobs import unit_stats_selected
+from ..selection import SelectionPolicy, selection_record, sidecar_selection
 from .surfaces import read_surface
 
 
@@ -51,13 +53,173 @@ def _seed_points(polygon, spacing: float) -> np.ndarray:
     return pts
 
 
+#: bounds of the capture radius of a sink, in cells of the head surface and as a share of its shorter side
+CAPTURE_RADIUS_MIN_CELLS = 0.25
+CAPTURE_RADIUS_MAX_SHARE = 0.25
+#: capture radius of a spring without discharge readings, in cells (common practice: about the grid resolution)
+SPRING_RADIUS_CELLS = 2.0
+
+
+def read_scenario(store: Store, unit: str, folder, name: str):
+    """A drawdown scenario written by ``drawdown --name NAME``: its sidecar and its head surface (grid, head)."""
+    import json
+
+    stem = scenario_stem(name)
+    side = unit_path(folder, unit, f"drawdown_{stem}.json")
+    tif = unit_path(folder, unit, f"head_{stem}.tif")
+    if not side.is_file() or not tif.is_file():
+        raise ParameterError(f"no drawdown scenario {name!r} for unit {unit} in {folder}; make it with "
+                             f"'hydroatlas drawdown {store.location} --unit {unit} ... --name {name} --out {folder}'")
+    try:
+        info = json.loads(side.read_text(encoding="utf-8"))
+    except (OSError, ValueError) as exc:
+        raise ParameterError(f"cannot read the scenario sidecar {side}: {exc}") from None
+    if info.get("unit") != unit or "baseline" not in info:
+        raise ParameterError(f"{side} is not a drawdown scenario sidecar of unit {unit}")
+    grid, head = read_surface(folder, unit, f"head_{stem}", store.location)
+    return info, grid, head
+
+
+def _spring_discharge_m3d(store: Store, window: dict) -> dict:
+    """Median discharge (m3/d) of each spring: readings in the head window, else all of its readings."""
+    dis = store.read("discharge")
+    if dis.empty:
+        return {}
+    dis = dis.assign(t=_instants(dis["measured_at"]).to_numpy())
+    out = {}
+    for sid, g in dis.groupby("spring_id"):
+        inside = g[(g["t"] >= window["start"]) & (g["t"] <= window["end"])]
+        out[sid] = float((inside if len(inside) else g)["discharge_m3d"].median())
+    return out
+
+
+def path_sinks(store: Store, unit: str, *, window: dict, grid, regional_head, k_md, scenario: dict | None = None,
+               capture_radius: float | None = None) -> tuple[pd.DataFrame, list[str]]:
+    """Sinks of particle tracking and the radius within which each captures a particle.
+
+    Sinks are the springs and the wells pumping at the end of the head window
+    (a record of the unit active then with a rate > 0; with a scenario, its
+    rates: stopped wells drop out, proposed wells join). Wells that stopped are
+    not sinks. Each sink captures within its stagnation distance in uniform flow,
+    x0 = Q / (2 pi b q) (Javandel and Tsang 1986), with Q its rate (a spring: its
+    median discharge), b the unit's thickness there (:func:`unit_thickness_at`)
+    and q = K i the regional Darcy flux from the gradient of ``regional_head``,
+    bounded to [CAPTURE_RADIUS_MIN_CELLS cells, CAPTURE_RADIUS_MAX_SHARE of the
+    grid's shorter side]. A spring without discharge readings captures within
+    SPRING_RADIUS_CELLS cells. ``capture_radius`` (CRS units), when given, is
+    used for every sink instead.
+
+    Returns the sinks (id, kind, x, y, rate_m3d, thickness_m, flux_m_per_d,
+    stagnation_distance, radius, radius_rule) and warnings.
+    """
+    from .. import flow
+
+    crs_to_m = _crs_to_m(store)
+    springs = store.read("springs", ["spring_id", "x", "y"])
+    _, base = baseline_pumping(store, unit, window)
+    rates = dict(zip(base["well_id"], base["rate_m3d"].astype(float)))
+    xy = {w: (float(x), float(y)) for w, x, y in base[["well_id", "x", "y"]].itertuples(index=False)}
+    kind = {w: "pumping well" for w in rates}
+    if scenario is not None:
+        for c in scenario.get("wells", []):
+            rates[c["well_id"]] = float(c["scenario_rate_m3d"])
+            xy[c["well_id"]] = (float(c["x"]), float(c["y"]))
+            kind[c["well_id"]] = "proposed well" if c.get("origin") == "proposed" else "pumping well"
+    wells = [w for w in rates if rates[w] > 0]
+    discharge = _spring_discharge_m3d(store, window)
+    sinks = pd.DataFrame({
+        "id": list(springs["spring_id"]) + wells,
+        "kind": ["spring"] * len(springs) + [kind[w] for w in wells],
+        "x": list(springs["x"].astype(float)) + [xy[w][0] for w in wells],
+        "y": list(springs["y"].astype(float)) + [xy[w][1] for w in wells],
+        "rate_m3d": [discharge.get(s, np.nan) for s in springs["spring_id"]] + [rates[w] for w in wells]})
+    warnings = []
+    if capture_radius is not None:
+        sinks["radius"] = float(capture_radius)
+        sinks["radius_rule"] = "given (--capture-radius)"
+        return sinks, warnings
+    pts = sinks[["x", "y"]].to_numpy(float).reshape(-1, 2)
+    b_m, b_info, b_warn = unit_thickness_at(store, unit, pts)
+    if b_m is None:
+        per = _unit_picks(store, unit)
+        if per.empty:
+            raise InsufficientDataError(f"unit {unit} has no picks; its thickness, which sets the capture radius "
+                                        "of springs and wells, is unknown; give --capture-radius")
+        mean_b = float((per["bottom_depth"] - per["top_depth"]).mean())
+        b_m = np.full(len(pts), mean_b * _length_to_m(store))
+        warnings.append(f"no well penetrates unit {unit} fully; the capture radii use the mean thickness of its "
+                        f"picks ({mean_b:.4g} {store.settings.length_unit}), which may be too small")
+    warnings += b_warn
+    gradient, _ = flow.grid_gradient(regional_head, grid.cell,
+                                     vertical_per_horizontal=_length_to_m(store) / crs_to_m)
+    i_pt = flow.values_at(grid.x0, grid.y0, grid.cell, gradient, pts, search=2)
+    k_pt = (flow.values_at(grid.x0, grid.y0, grid.cell, k_md, pts, search=2) if np.ndim(k_md) == 2
+            else np.full(len(pts), float(k_md)))
+    q_md = k_pt * i_pt
+    r_min = CAPTURE_RADIUS_MIN_CELLS * grid.cell
+    r_max = max(r_min, CAPTURE_RADIUS_MAX_SHARE * min(grid.nrows, grid.ncols) * grid.cell)
+    x0 = np.full(len(pts), np.nan)
+    ok = np.isfinite(sinks["rate_m3d"].to_numpy(float)) & np.isfinite(q_md) & np.isfinite(b_m)
+    if ok.any():
+        x0[ok] = flow.stagnation_distance(sinks["rate_m3d"].to_numpy(float)[ok], b_m[ok], q_md[ok]) / crs_to_m
+    radius = np.where(np.isfinite(x0), np.clip(x0, r_min, r_max), np.nan)
+    rule = np.where(np.isfinite(x0), np.where(x0 < r_min, "stagnation distance, raised to the lower bound",
+                                              np.where(x0 > r_max, "stagnation distance, cut to the upper bound",
+                                                       "stagnation distance Q / (2 pi b q)")), "")
+    spring = (sinks["kind"] == "spring").to_numpy()
+    no_rate = spring & ~np.isfinite(radius)
+    radius[no_rate] = SPRING_RADIUS_CELLS * grid.cell
+    rule[no_rate] = f"{SPRING_RADIUS_CELLS:g} cells (no discharge reading)"
+    lost = ~spring & ~np.isfinite(radius)
+    if lost.any():
+        warnings.append(f"well(s) {', '.join(sinks.loc[lost, 'id'])} lie outside the head surface; they capture "
+                        f"within the lower bound ({r_min:g} CRS units)")
+        radius[lost] = r_min
+        rule[lost] = "lower bound (outside the head surface)"
+    sinks["thickness_m"] = b_m
+    sinks["flux_m_per_d"] = q_md
+    sinks["stagnation_distance"] = x0
+    sinks["radius"] = radius
+    sinks["radius_rule"] = rule
+    return sinks, warnings
+
+
+def _sink_records(store: Store, sinks: pd.DataFrame) -> list[dict]:
+    """The sinks for a sidecar, each number with its unit (rates, thickness and flux in the store's units)."""
+    L = store.settings.length_unit
+    len_m = _length_to_m(store)
+    rows = []
+    for r in sinks.to_dict(orient="records"):
+        row = {"id": r["id"], "kind": r["kind"], "x": r["x"], "y": r["y"],
+               "rate": float(_in_store_rate(store, r["rate_m3d"])), "rate_unit": _store_rate_unit(store),
+               "capture_radius": r["radius"], "capture_radius_unit": "CRS units", "rule": r["radius_rule"]}
+        if "thickness_m" in r:
+            row.update({"thickness": r["thickness_m"] / len_m, "thickness_unit": L,
+                        "darcy_flux": r["flux_m_per_d"] / len_m, "darcy_flux_unit": f"{L}/d",
+                        "stagnation_distance": r["stagnation_distance"]})
+        rows.append(row)
+    return rows
+
+
 def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=None, backward: bool = False,
                 k_source: str = "mean", seed_spacing: float | None = None, capture_radius: float | None = None,
-                max_years: float = 1000.0, seeds_per_spring: int = 72) -> dict:
+                max_years: float = 1000.0, seeds_per_spring: int = 72,
+                policy: SelectionPolicy | None = None, scenario: str | None = None) -> dict:
     """Track particles on a unit's head surface: forward from recharge areas, or backward from springs.
 
+    The K tests behind the unit's mean K follow the selection policy (None: the default); the sidecar's
+    ``selection`` says which, ``head_surface_selection`` repeats that of the head surface used.
+
+    Sinks are the springs and the wells pumping at the end of the head window,
+    each capturing within its stagnation distance (:func:`path_sinks`); wells
+    that stopped are not sinks. With ``scenario`` (a name given to ``drawdown
+    --name``) particles move on that scenario's head surface
+    (<unit>_head_<name>.tif in the surfaces folder) and the scenario's rates
+    decide the sinks, so a proposed well's capture shows.
+
     Writes the ``pathlines`` layer (and ``contributing_areas`` when backward) of OUT/layers.gpkg,
-    OUT/<unit>_pathways.csv and a JSON sidecar. Returns a summary dict.
+    OUT/<unit>_pathways.csv (backward: OUT/<unit>_pathways_backward.csv; a scenario adds
+    ``_<name>``) and a JSON sidecar of the same name. Returns a summary dict.
     """
     import geopandas as gpd
     import shapely
@@ -75,42 +237,63 @@ def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=N
     _unit_members(units, unit)
     out = Path(out)
     folder = Path(surfaces) if surfaces is not None else out
-    grid, head = read_surface(folder, unit, "head", store.location)
+    scn = None
+    if scenario is not None:
+        scn, grid, head = read_scenario(store, unit, folder, scenario)
+        hw = scn["baseline"]["head_window"]
+        window = {"start": pd.Timestamp(hw["from"]), "end": pd.Timestamp(hw["to"]), "text": hw["text"],
+                  "source": f"{hw['source']}, as recorded by the scenario"}
+        regional = read_surface(folder, unit, "head", store.location)[1] \
+            if unit_path(folder, unit, "head.tif").is_file() else None
+        if regional is None or regional.shape != head.shape:
+            regional = head
+    else:
+        grid, head = read_surface(folder, unit, "head", store.location)
+        window = head_window(store, unit, folder)
+        regional = head
     if k_source == "surface":
-        kgrid, logk = read_surface(folder, unit, "logk", store.location)
+        from .surfaces import read_logk_m_per_d
+
+        kgrid, k_md, k_surface_unit = read_logk_m_per_d(folder, unit, store)
         if kgrid.shape != grid.shape or abs(kgrid.x0 - grid.x0) > 1e-6 or abs(kgrid.cell - grid.cell) > 1e-9:
             raise ParameterError("the head and log-K surfaces of the unit are on different grids; "
                                  "make both with the same --cell")
-        k_md = 10.0 ** logk
-        k_info = {"source": "log-K surface", "file": str(unit_path(folder, unit, "logk.tif"))}
+        k_info = {"source": "log-K surface", "file": str(unit_path(folder, unit, "logk.tif")),
+                  "surface_values": f"log10 of K in {k_surface_unit}", "k_unit": k_surface_unit}
     else:
-        row = next(r for r in unit_stats(store, k_unit="m/d") if r["unit"] == unit)
+        rows, k_selection = unit_stats_selected(store, k_unit="m/d", policy=policy)
+        row = next(r for r in rows if r["unit"] == unit)
         if row["k_geomean"] is None:
             raise InsufficientDataError(f"unit {unit} has no K tests; its geometric-mean K is unknown")
+        from ..quantities import convert
+        from .store_jobs import store_k_unit
+
         k_md = row["k_geomean"]
-        k_info = {"source": "unit geometric mean", "k_m_per_d": k_md}
+        k_unit = store_k_unit(store)  # the sidecar names K in the store's K unit
+        k_info = {"source": "unit geometric mean", "k": convert(k_md, "m/d", k_unit, "hydraulic conductivity"),
+                  "k_unit": k_unit}
     field = flow.VelocityGrid.from_head(grid.x0, grid.y0, grid.cell, head, k_md, porosity,
                                         vertical_per_horizontal=_length_to_m(store) / crs_to_m,
                                         k_per_day_to_crs=1.0 / crs_to_m)
     springs = store.read("springs")
     if springs.empty:
         raise ParameterError("the store has no spring; import springs with 'hydroatlas import STORE springs FILE'")
-    pumped = set(store.read("pumping", ["well_id"])["well_id"])
-    wells = store.read("wells", ["well_id", "x", "y"])
-    pw = wells[wells["well_id"].isin(pumped)]
-    sink_xy = np.vstack([springs[["x", "y"]].to_numpy(float), pw[["x", "y"]].to_numpy(float)])
-    sink_ids = list(springs["spring_id"]) + list(pw["well_id"])
-    sink_kind = ["spring"] * len(springs) + ["pumping well"] * len(pw)
-    radius = capture_radius if capture_radius is not None else 2.0 * grid.cell
-    if not radius > 0:
-        raise ParameterError(f"capture radius must be > 0; got {radius}")
+    if capture_radius is not None and not capture_radius > 0:
+        raise ParameterError(f"capture radius must be > 0; got {capture_radius}")
+    sinks, warnings = path_sinks(store, unit, window=window, grid=grid, regional_head=regional, k_md=k_md,
+                                 scenario=scn, capture_radius=capture_radius)
+    sink_xy = sinks[["x", "y"]].to_numpy(float).reshape(-1, 2)
+    sink_ids = list(sinks["id"])
+    sink_kind = list(sinks["kind"])
+    radius = sinks["radius"].to_numpy(float)
     t_max = max_years * 365.25
     recharge = _recharge_areas(store, unit) if not backward else None
     if backward:
         ang = np.linspace(0, 2 * np.pi, seeds_per_spring, endpoint=False)
         seeds, origin = [], []
-        for sid, x, y in springs[["spring_id", "x", "y"]].itertuples(index=False):
-            seeds.append(np.column_stack([x + 1.01 * radius * np.cos(ang), y + 1.01 * radius * np.sin(ang)]))
+        for j, (sid, x, y) in enumerate(springs[["spring_id", "x", "y"]].itertuples(index=False)):
+            r_s = radius[j]  # the springs come first among the sinks
+            seeds.append(np.column_stack([x + 1.01 * r_s * np.cos(ang), y + 1.01 * r_s * np.sin(ang)]))
             origin += [sid] * len(ang)
         seeds = np.vstack(seeds)
         res = flow.track(seeds, field, backward=True, t_max=t_max, max_step=0.5 * grid.cell)
@@ -128,27 +311,40 @@ def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=N
     lines = [shapely.LineString(p[:, :2]) if len(p) >= 2 else shapely.LineString([p[0, :2], p[0, :2]])
              for p in res.paths]
     direction = "backward" if backward else "forward"
+    scenario_label = "" if scenario is None else str(scenario)
     gdf = gpd.GeoDataFrame({"unit": unit, "particle": np.arange(len(lines)), "direction": direction,
-                            "origin": origin, "end_kind": res.end_kind, "end_id": end_id,
-                            "travel_days": res.time, "travel_years": res.time / 365.25},
+                            "scenario": scenario_label, "origin": origin, "end_kind": res.end_kind,
+                            "end_id": end_id, "travel_days": res.time, "travel_years": res.time / 365.25},
                            geometry=lines, crs=store.settings.crs)
     gpkg = out / "layers.gpkg"
-    gdf = _keep_other_rows(gpkg, "pathlines", gdf, (gdf["unit"].iloc[0], direction), ("unit", "direction"))
+    gdf = _keep_other_rows(gpkg, "pathlines", gdf, (unit, direction, scenario_label),
+                           ("unit", "direction", "scenario"))
     write_layer(gpkg, "pathlines", gdf, description=KARST_WARNING)
     files = {"pathlines": f"{gpkg}:pathlines"}
     if backward:
         ca, table = _contributing_areas(store, unit, field, grid, head, springs, sink_xy, radius, t_max)
-        ca = _keep_other_rows(gpkg, "contributing_areas", ca, (unit,), ("unit",))
+        ca["scenario"] = scenario_label
+        ca = _keep_other_rows(gpkg, "contributing_areas", ca, (unit, scenario_label), ("unit", "scenario"))
         write_layer(gpkg, "contributing_areas", ca, description=KARST_WARNING)
         files["contributing_areas"] = f"{gpkg}:contributing_areas"
     else:
         table = _forward_table(origin, end_label, res.time)
-    files["table"] = str(write_csv(unit_path(out, unit, "pathways.csv"), table))
+    tail = "pathways" + ("_backward" if backward else "") + ("" if scenario is None else f"_{scenario_stem(scenario)}")
+    files["table"] = str(write_csv(unit_path(out, unit, f"{tail}.csv"), table))
     side = {"unit": unit, "direction": direction, "porosity": porosity, "k": k_info,
-            "capture_radius": radius, "max_years": max_years, "n_particles": int(len(seeds)),
-            "head_surface": str(unit_path(folder, unit, "head.tif")), "integrator": "Dormand-Prince 5(4), adaptive",
-            "caution": CAUTION, "karst_warning": KARST_WARNING, "files": files}
-    files["sidecar"] = str(write_sidecar(unit_path(out, unit, "pathways.json"), side))
+            "capture_radius": (float(capture_radius) if capture_radius is not None
+                               else "per sink: stagnation distance Q / (2 pi b q), Javandel and Tsang (1986)"),
+            "sinks": _sink_records(store, sinks), "head_window": window_record(window), "scenario": scenario,
+            "warnings": warnings, "max_years": max_years, "n_particles": int(len(seeds)),
+            "head_surface": str(unit_path(folder, unit, "head.tif" if scenario is None
+                                          else f"head_{scenario_stem(scenario)}.tif")),
+            "integrator": "Dormand-Prince 5(4), adaptive",
+            "caution": CAUTION, "karst_warning": KARST_WARNING, "files": files,
+            # K tests behind the mean K here; the surfaces' own selections are in their sidecars
+            "selection": (k_selection if k_source == "mean"
+                          else sidecar_selection(unit_path(folder, unit, "logk.json"))),
+            "head_surface_selection": sidecar_selection(unit_path(folder, unit, "head.json"))}
+    files["sidecar"] = str(write_sidecar(unit_path(out, unit, f"{tail}.json"), side))
     side["table"] = table
     return side
 
@@ -161,11 +357,13 @@ def _keep_other_rows(gpkg: Path, layer: str, new, key: tuple, columns: tuple):
     if not gpkg.exists() or layer not in {n for n, _ in pyogrio.list_layers(gpkg)}:
         return new
     old = pyogrio.read_dataframe(gpkg, layer=layer)
+    if "scenario" in columns and "scenario" not in old.columns:
+        old["scenario"] = ""  # written before scenarios were traced: the baseline
     if not set(columns) <= set(old.columns):
         return new
     same = np.ones(len(old), bool)
     for col, value in zip(columns, key):
-        same &= (old[col] == value).to_numpy()
+        same &= (old[col].fillna("") == value).to_numpy() if col == "scenario" else (old[col] == value).to_numpy()
     old = old[~same]
     if old.empty:
         return new
@@ -238,16 +436,256 @@ def _contributing_areas(store: Store, unit: str, field, grid, head, springs, sin
 
 
 # -- pumping scenarios (SPEC 2.9) --------------------------------------------------
-def _unit_thickness_m(store: Store, unit: str) -> float:
+# -- the baseline of a scenario: head window, pumping in it, unit thickness ---------------
+#: scenario names that would give a file name of another output
+RESERVED_SCENARIO_NAMES = ("drawdown", "impacts", "backward")
+#: a pick's bottom this close to the well's total depth (in metres) is where drilling stopped
+TOTAL_DEPTH_TOLERANCE_M = 0.05
+
+
+def scenario_stem(name) -> str:
+    """The file-name part of a scenario name (``drawdown --name``, ``paths --scenario``); refuses empty names."""
+    from ..export.names import file_stem
+
+    text = "" if name is None else str(name).strip()
+    if not text:
+        raise ParameterError("a scenario name must not be empty")
+    if text.lower() in RESERVED_SCENARIO_NAMES:
+        raise ParameterError(f"scenario name {text!r} is reserved (it would clash with other output names); "
+                             "choose another")
+    return file_stem(text)
+
+
+def _instants(values) -> pd.Series:
+    """ISO 8601 texts (or NaN) as naive timestamps (offsets turned into UTC, as the head readings)."""
+    t = pd.to_datetime(pd.Series(values, dtype=object), format="ISO8601", utc=True)
+    return t.dt.tz_convert(None)
+
+
+def head_window(store: Store, unit: str, folder) -> dict:
+    """The time window of the heads behind a unit's head surface (read from its sidecar).
+
+    A surface made with ``--window`` has that window; one made with ``--at`` has
+    that instant; one made from all readings has the span of the unit's readings.
+    Returns ``start`` and ``end`` (timestamps), ``text`` and ``source``.
+    """
+    import json
+
+    from ..heads import TimeWindow, parse_instant
+
+    side = unit_path(folder, unit, "head.json")
+    info = {}
+    if side.is_file():
+        try:
+            info = json.loads(side.read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            info = {}
+    if isinstance(info.get("window"), str) and info["window"]:
+        tw = TimeWindow.parse(info["window"], name=f"window of {side.name}")
+        return {"start": tw.start, "end": tw.end, "text": tw.text,
+                "source": f"window of the head surface ({side.name})"}
+    if isinstance(info.get("at"), str) and info["at"]:
+        t, _ = parse_instant(info["at"], name=f"date of {side.name}")
+        return {"start": t, "end": t, "text": info["at"], "source": f"date of the head surface ({side.name}, --at)"}
+    heads = store.read("heads", ["well_id", "zone_id", "measured_at"])
+    asg = zone_assignment(store)
+    members = _unit_members(store.read("units"), unit)
+    mine = heads.merge(asg[asg["unit"].isin(members)][["well_id", "zone_id"]], on=["well_id", "zone_id"])
+    if mine.empty:
+        mine = heads
+    if mine.empty:
+        raise InsufficientDataError(f"unit {unit} has no head readings; its head window is unknown")
+    t = _instants(mine["measured_at"])
+    start, end = t.min(), t.max()
+    return {"start": start, "end": end, "text": f"{start.isoformat()}/{end.isoformat()}",
+            "source": "span of the unit's head readings (the head surface used every reading)"}
+
+
+def window_record(window: dict) -> dict:
+    """The head window as plain JSON values."""
+    return {"from": window["start"].isoformat(), "to": window["end"].isoformat(), "text": window["text"],
+            "source": window["source"]}
+
+
+def _in_unit(store: Store, rec: pd.DataFrame, unit: str) -> list[bool]:
+    """Which pumping records draw on ``unit``: a zone assigned to it, or a whole-well record of a well open to it."""
+    asg = zone_assignment(store)
+    members = _unit_members(store.read("units"), unit)
+    zone_unit = {(w, z): u for w, z, u in asg[["well_id", "zone_id", "unit"]].itertuples(index=False)}
+    well_units = asg.groupby("well_id")["unit"].agg(set).to_dict()
+    return [((zone_unit.get((w, z)) in members) if z else bool(well_units.get(w, set()) & members))
+            for w, z in rec[["well_id", "zone_id"]].itertuples(index=False)]
+
+
+def pumping_records(store: Store, unit: str) -> pd.DataFrame:
+    """Pumping records of a unit's wells (zone in the unit, or whole-well records of wells open to it).
+
+    Columns well_id, zone_id, start, end (timestamps; NaT while pumping), rate, rate_unit, rate_m3d, x, y.
+    """
+    cols = ["well_id", "zone_id", "start", "end", "rate", "rate_unit", "rate_m3d", "x", "y"]
+    rec = store.read("pumping")
+    if rec.empty:
+        return pd.DataFrame(columns=cols)
+    rec = rec[_in_unit(store, rec, unit)].copy()
+    rec["start"] = _instants(rec["start"]).to_numpy()
+    rec["end"] = _instants(rec["end"]).to_numpy()
+    rec = rec.merge(store.read("wells", ["well_id", "x", "y"]), on="well_id")
+    return rec[cols].reset_index(drop=True)
+
+
+def baseline_pumping(store: Store, unit: str, window: dict) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Pumping behind a head surface: the records active during the head window and the wells they belong to.
+
+    Returns ``(records, wells)``: the records that overlap the window (start at or
+    before its end, no end or an end at or after its start), and per well the
+    summed rate at the window's end (``rate_m3d``; 0 for a well whose records all
+    stopped inside the window) with ``x``, ``y`` and ``stopped_in_window``.
+    """
+    rec = pumping_records(store, unit)
+    start, end = window["start"], window["end"]
+    during = (rec["start"] <= end) & (rec["end"].isna() | (rec["end"] >= start))
+    rec = rec[during].reset_index(drop=True)
+    at_end = rec["end"].isna() | (rec["end"] >= end)
+    rec["rate_at_window_end_m3d"] = np.where(at_end, rec["rate_m3d"].astype(float), 0.0)
+    wells = (rec.groupby("well_id", sort=True)
+             .agg(x=("x", "first"), y=("y", "first"), rate_m3d=("rate_at_window_end_m3d", "sum"))
+             .reset_index())
+    wells["stopped_in_window"] = wells["rate_m3d"] <= 0
+    return rec, wells
+
+
+def _unit_picks(store: Store, unit: str) -> pd.DataFrame:
+    """Per well with a pick of the unit: top and bottom depth, total depth and whether the pick holds the bottom."""
+    from .. import pumping
+
     units = store.read("units")
     members = _unit_members(units, unit)
     picks = store.read("picks")
-    picks = picks[picks["unit"].isin(members)]
-    if picks.empty:
-        raise InsufficientDataError(f"unit {unit} has no picks; its thickness (for T = K b) is unknown; "
-                                    "give --transmissivity")
-    per_well = (picks["bottom_depth"] - picks["top_depth"]).groupby(picks["well_id"]).sum()
-    return float(per_well.mean()) * _length_to_m(store)
+    mine = picks[picks["unit"].isin(members)]
+    cols = ["well_id", "x", "y", "ground_elev", "top_depth", "bottom_depth", "total_depth", "full"]
+    if mine.empty:
+        return pd.DataFrame(columns=cols)
+    per = mine.groupby("well_id").agg(top_depth=("top_depth", "min"), bottom_depth=("bottom_depth", "max"))
+    rank = dict(zip(units["code"], units["rank"]))
+    lowest = max(rank[c] for c in members)
+    below = picks[(picks["unit"].map(rank) > lowest) & ~picks["unit"].isin(members)]
+    per = per.reset_index().merge(store.read("wells", ["well_id", "x", "y", "ground_elev", "total_depth"]),
+                                  on="well_id")
+    per["full"] = pumping.full_penetrations(per["bottom_depth"].to_numpy(float),
+                                            per["total_depth"].to_numpy(float),
+                                            per["well_id"].isin(set(below["well_id"])).to_numpy(),
+                                            tolerance=TOTAL_DEPTH_TOLERANCE_M / _length_to_m(store))
+    return per[cols]
+
+
+def unit_thickness_at(store: Store, unit: str, xy) -> tuple[np.ndarray | None, dict, list[str]]:
+    """Thickness of a unit (m) at points (store CRS), from the wells that penetrate it fully.
+
+    Only wells whose picks hold the unit's top and bottom count: a pick ending
+    at the well's total depth shows where drilling stopped, not the unit's
+    bottom, and the well must show that it went on (a pick of a lower unit, or
+    a total depth below the pick; :func:`hydroatlas.pumping.full_penetrations`). With three or more such wells
+    their thicknesses are interpolated by inverse-distance weighting (power 2,
+    16 nearest); with one or two, their mean is used with a warning; with none
+    the thickness is unknown (None).
+
+    Returns ``(thickness_m or None, info, warnings)``.
+    """
+    from ..interp import IDW
+
+    per = _unit_picks(store, unit)
+    full = per[per["full"].astype(bool)] if not per.empty else per
+    len_m = _length_to_m(store)
+    L = store.settings.length_unit
+    info = {"rule": "wells whose picks hold the unit's top and bottom (bottom not at the well's total depth, and "
+                    "a pick of a lower unit or a total depth below the pick)",
+            "n_wells_with_picks": int(len(per)), "n_full_penetrations": int(len(full)),
+            "full_penetration_wells": list(full["well_id"]), "length_unit": L}
+    warnings = []
+    if full.empty:
+        info["method"] = None
+        return None, info, warnings
+    th = (full["bottom_depth"] - full["top_depth"]).to_numpy(float)
+    info["mean_full_penetration_thickness"] = float(th.mean())
+    if len(per):
+        info["mean_thickness_of_all_picks"] = float((per["bottom_depth"] - per["top_depth"]).mean())
+    pts = np.atleast_2d(np.asarray(xy, float))
+    if len(full) >= 3:
+        model = IDW(power=2.0, neighbors=16).fit(full[["x", "y"]].to_numpy(float), th)
+        b = model.predict(pts)
+        info["method"] = "inverse-distance weighting (power 2, 16 nearest) of full-penetration thicknesses"
+    else:
+        b = np.full(len(pts), th.mean())
+        info["method"] = "mean of the full-penetration thicknesses"
+        warnings.append(f"only {len(full)} well(s) penetrate unit {unit} fully ({', '.join(full['well_id'])}); "
+                        f"its thickness ({th.mean():.4g} {L}) is their mean, not interpolated; "
+                        "check it or give the transmissivity")
+    return b * len_m, info, warnings
+
+
+def unit_levels_at(store: Store, unit: str, xy) -> tuple[np.ndarray, np.ndarray]:
+    """Top and bottom elevation of a unit at points (store length unit), interpolated from picks by IDW.
+
+    The top comes from every well with a pick of the unit; the bottom only from
+    wells that penetrate it fully (NaN where there is none).
+    """
+    from ..interp import IDW
+
+    per = _unit_picks(store, unit)
+    pts = np.atleast_2d(np.asarray(xy, float))
+    top = np.full(len(pts), np.nan)
+    bottom = np.full(len(pts), np.nan)
+    if per.empty or len(pts) == 0:
+        return top, bottom
+    xy_w = per[["x", "y"]].to_numpy(float)
+    top = IDW(power=2.0, neighbors=16).fit(xy_w, (per["ground_elev"] - per["top_depth"]).to_numpy(float)).predict(pts)
+    full = per["full"].to_numpy(bool)
+    if full.any():
+        bottom = IDW(power=2.0, neighbors=16).fit(
+            xy_w[full], (per["ground_elev"] - per["bottom_depth"]).to_numpy(float)[full]).predict(pts)
+    return top, bottom
+
+
+def drawdown_layers(folder, unit: str) -> list[tuple[str, str]]:
+    """The drawdown rasters of a unit in a folder, for the map: (label, quantity), newest first.
+
+    ``quantity`` is the tail that :func:`read_surface` takes: ``drawdown`` for the unnamed scenario,
+    ``drawdown_<name>`` for one made with ``drawdown --name``.
+    """
+    import json
+
+    from ..export.names import file_stem
+
+    folder = Path(folder)
+    found = []
+    if unit_path(folder, unit, "drawdown.tif").is_file():
+        found.append((unit_path(folder, unit, "drawdown.tif").stat().st_mtime, "Drawdown of the last scenario",
+                      "drawdown"))
+    for side in folder.glob(f"{file_stem(unit)}_drawdown_*.json"):
+        try:
+            info = json.loads(side.read_text(encoding="utf-8"))
+            name = info.get("scenario")
+            if info.get("unit") != unit or not isinstance(name, str):
+                continue
+            tail = f"drawdown_{scenario_stem(name)}"
+        except (OSError, ValueError, HydroatlasError):
+            continue
+        tif = unit_path(folder, unit, f"{tail}.tif")
+        if side == unit_path(folder, unit, f"{tail}.json") and tif.is_file():
+            what = "total drawdown" if info.get("mode") == "from unpumped" else "drawdown change"
+            found.append((tif.stat().st_mtime, f"Scenario {name}: {what}", tail))
+    return [(label, tail) for _, label, tail in sorted(found, reverse=True)]
+
+
+def _store_rate_unit(store: Store) -> str:
+    """The store's volumetric rate unit: cubic length units per day (m3/d or ft3/d)."""
+    return f"{store.settings.length_unit}3/d"
+
+
+def _in_store_rate(store: Store, q_m3d):
+    from ..quantities import RATE_UNITS
+
+    return np.asarray(q_m3d, float) / RATE_UNITS[_store_rate_unit(store)]
 
 
 def active_pumping(store: Store, unit: str) -> pd.DataFrame:
@@ -256,40 +694,74 @@ def active_pumping(store: Store, unit: str) -> pd.DataFrame:
     if rec.empty:
         return pd.DataFrame(columns=["well_id", "rate_m3d"])
     rec = rec[rec["end"].isna()].sort_values("start").groupby(["well_id", "zone_id"]).tail(1)
-    asg = zone_assignment(store)
-    members = _unit_members(store.read("units"), unit)
-    zone_unit = {(w, z): u for w, z, u in asg[["well_id", "zone_id", "unit"]].itertuples(index=False)}
-    well_units = asg.groupby("well_id")["unit"].agg(set).to_dict()
-    keep = [((zone_unit.get((w, z)) in members) if z else bool(well_units.get(w, set()) & members))
-            for w, z in rec[["well_id", "zone_id"]].itertuples(index=False)]
-    rec = rec[keep]
+    rec = rec[_in_unit(store, rec, unit)]
     return rec.groupby("well_id", as_index=False)["rate_m3d"].sum()
+
+
+def _drawdown_in_store_units(length_unit: str, side: dict) -> dict:
+    """T and the wells' rates of a drawdown sidecar in the store's units (ft2/d and ft3/d in a feet store)."""
+    from ..quantities import convert, store_units
+
+    su = store_units(length_unit)
+
+    def rate(v):
+        return None if v is None else convert(float(v), "m3/d", su.rate, "rate")
+
+    t = side.get("transmissivity_m2_per_d")
+    return {"transmissivity": None if t is None else convert(float(t), "m2/d", su.transmissivity, "transmissivity"),
+            "transmissivity_unit": su.transmissivity, "rate_unit": su.rate,
+            "wells": [{"well_id": w.get("well_id"), "baseline_rate": rate(w.get("baseline_rate_m3d")),
+                       "scenario_rate": rate(w.get("scenario_rate_m3d")), "change": rate(w.get("change_m3d"))}
+                      for w in side.get("wells", [])]}
 
 
 def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: float, rates: dict | None = None,
                       new_wells: list | None = None, rate_unit: str = "m3/d", transmissivity: float | None = None,
-                      surfaces=None, out=".", threshold: float = 0.5, well_radius_m: float = 0.1) -> dict:
-    """Superposed Theis drawdown of the unit's pumping wells over its head surface.
+                      surfaces=None, out=".", threshold: float = 0.5, well_radius_m: float = 0.1,
+                      name: str | None = None, from_unpumped: bool = False,
+                      policy: SelectionPolicy | None = None) -> dict:
+    """Theis drawdown of a pumping scenario over a unit's head surface, against the baseline in the heads.
+
+    The K tests behind the default T follow the selection policy (None: the default); the sidecar's
+    ``selection`` says which, ``head_surface_selection`` repeats that of the head surface used.
+
+    Measured heads already hold the cones of the wells that pumped during the
+    head window of the surface (the baseline: every pumping record of the unit
+    active during that window, at its rate at the window's end). By default the
+    result is the change the scenario makes against that baseline: proposed
+    wells and changed rates add drawdown, stopped wells (rate 0) give recovery
+    (negative drawdown), unchanged baseline wells give nothing; the head after
+    is the surface minus that change. With ``from_unpumped`` the result is the
+    total drawdown of all pumping (baseline wells at their scenario rates plus
+    proposed wells) on the surface adjusted to unpumped conditions: the baseline
+    records' Theis drawdown at the end of the head window (time since each
+    record's start, less the recovery since its stop) is added back first.
 
     Parameters
     ----------
     days : float
-        Pumping duration (d), > 0.
+        Pumping duration of the scenario (d), > 0.
     storativity : float
         Storage coefficient S (> 0).
     rates : dict, optional
-        Well id -> rate in ``rate_unit``; replaces (or adds) the stored current rate of that well.
+        Well id -> scenario rate in ``rate_unit`` (0 stops the well); replaces its baseline rate.
     new_wells : list of (label, x, y, rate), optional
         Proposed wells (store CRS, rate in ``rate_unit``).
     transmissivity : float, optional
-        T in m2/d; default the unit's geometric-mean K times its mean picked thickness.
+        T in m2/d for every well; default the unit's geometric-mean K times its thickness at each well,
+        from the wells that penetrate it fully (:func:`unit_thickness_at`).
     threshold : float
-        Springs and monitoring zones with more drawdown than this (store length unit) are listed.
-
-    Writes OUT/<unit>_drawdown.tif, OUT/<unit>_head_drawdown.tif, OUT/<unit>_drawdown_impacts.csv
-    and OUT/<unit>_drawdown.json.
+        Springs and monitoring zones with more drawdown than this (store length unit) are listed, and
+        so is any whose head the scenario takes below the unit's top or bottom.
+    name : str, optional
+        Scenario name: outputs are OUT/<unit>_drawdown_<name>.tif, OUT/<unit>_head_<name>.tif,
+        OUT/<unit>_drawdown_<name>_impacts.csv and OUT/<unit>_drawdown_<name>.json (``paths --scenario``
+        reads them). Without a name: OUT/<unit>_drawdown.tif, OUT/<unit>_head_drawdown.tif,
+        OUT/<unit>_drawdown_impacts.csv and OUT/<unit>_drawdown.json.
+    from_unpumped : bool
+        Total drawdown of all pumping on the head surface adjusted to unpumped conditions (see above).
     """
-    from .. import pumping
+    from .. import flow, pumping
     from ..export.rasters import write_geotiff, write_sidecar
     from ..quantities import RATE_UNITS, normalize_unit
 
@@ -299,52 +771,136 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
         raise ParameterError(f"storativity S must be > 0; got {storativity}")
     if transmissivity is not None and not transmissivity > 0:
         raise ParameterError(f"transmissivity T must be > 0; got {transmissivity}")
+    stem = None if name is None else scenario_stem(name)
     crs_to_m = _crs_to_m(store)
     len_m = _length_to_m(store)
+    L = store.settings.length_unit
     q_factor = RATE_UNITS[normalize_unit(rate_unit, "rate")]
     out = Path(out)
     folder = Path(surfaces) if surfaces is not None else out
     grid, head = read_surface(folder, unit, "head", store.location)
+    window = head_window(store, unit, folder)
+    records, base = baseline_pumping(store, unit, window)
     wells = store.read("wells", ["well_id", "x", "y"]).set_index("well_id")
-    current = active_pumping(store, unit).set_index("well_id")["rate_m3d"].to_dict()
+    base_q = dict(zip(base["well_id"], base["rate_m3d"].astype(float)))
+    scen_q = dict(base_q)
     for wid, q in (rates or {}).items():
         if wid not in wells.index:
             raise ParameterError(f"--rate names well {wid!r}, which is not in the store (use --new-well X,Y,Q "
                                  "for a proposed well)")
-        current[wid] = float(q) * q_factor
-    table = [(wid, float(wells.loc[wid, "x"]), float(wells.loc[wid, "y"]), q, "stored") for wid, q in current.items()]
+        scen_q[wid] = float(q) * q_factor
+    rows = []
+    for wid, q in scen_q.items():
+        b = base_q.get(wid, 0.0)
+        status = ("unchanged" if q == b else "stopped" if q == 0 else "started" if wid not in base_q or b == 0
+                  else "changed")
+        rows.append((wid, float(wells.loc[wid, "x"]), float(wells.loc[wid, "y"]), b, q, status, "stored"))
     for label, x, y, q in (new_wells or []):
-        table.append((label, float(x), float(y), float(q) * q_factor, "proposed"))
-    if not table:
-        raise ParameterError(f"no pumping well of unit {unit}: import pumping records or give --rate / --new-well")
-    pw = pd.DataFrame(table, columns=["well_id", "x", "y", "rate_m3d", "status"])
+        if label in wells.index or label in scen_q:
+            raise ParameterError(f"--new-well {label!r} has the id of a stored well; give its rate with "
+                                 f"--rate {label}=Q, or another name")
+        rows.append((label, float(x), float(y), 0.0, float(q) * q_factor, "proposed", "proposed"))
+    if not rows:
+        raise ParameterError(f"no pumping well of unit {unit} in the baseline (no pumping record active in the "
+                             f"head window {window['text']}) and no --rate or --new-well: nothing to compute")
+    pw = pd.DataFrame(rows, columns=["well_id", "x", "y", "baseline_rate_m3d", "scenario_rate_m3d", "status",
+                                     "origin"])
+    pw["change_m3d"] = pw["scenario_rate_m3d"] - pw["baseline_rate_m3d"]
     xmin, ymin, xmax, ymax = grid.bounds
-    outside = ~pw["x"].between(xmin, xmax) | ~pw["y"].between(ymin, ymax)
+    outside = (~pw["x"].between(xmin, xmax) | ~pw["y"].between(ymin, ymax)) & (pw["status"] != "unchanged")
     if outside.any():
         raise ParameterError(f"pumping well(s) {', '.join(pw.loc[outside, 'well_id'])} lie outside the head "
                              f"surface grid of unit {unit}")
+    warnings = []
+    later = pumping_records(store, unit)
+    later = sorted(set(later.loc[later["start"] > window["end"], "well_id"]) - set(scen_q))
+    if later:
+        warnings.append(f"well(s) {', '.join(later)} started pumping after the head window {window['text']}; "
+                        "they are not in the baseline and not in this scenario unless given with --rate")
+    wxy = pw[["x", "y"]].to_numpy(float)
     if transmissivity is None:
-        row = next(r for r in unit_stats(store, k_unit="m/d") if r["unit"] == unit)
+        rows, k_selection = unit_stats_selected(store, k_unit="m/d", policy=policy)
+        row = next(r for r in rows if r["unit"] == unit)
         if row["k_geomean"] is None:
             raise InsufficientDataError(f"unit {unit} has no K tests; give --transmissivity")
-        b = _unit_thickness_m(store, unit)
-        transmissivity = row["k_geomean"] * b
-        t_info = {"source": "unit geometric-mean K x mean picked thickness", "k_m_per_d": row["k_geomean"],
-                  "thickness_m": b}
+        b_m, b_info, b_warn = unit_thickness_at(store, unit, wxy)
+        if b_m is None:
+            raise InsufficientDataError(
+                f"no well penetrates unit {unit} fully (picks of its top and bottom, the bottom not at the "
+                f"well's total depth, with a lower unit picked or the well drilled on below it), so its "
+                "thickness for T = K b is "
+                "unknown; give --transmissivity")
+        warnings += b_warn
+        t_well = row["k_geomean"] * b_m
+        t_info = {"source": "unit geometric-mean K x thickness at each well from full penetrations",
+                  "k_m_per_d": row["k_geomean"], "thickness": b_info}
     else:
+        t_well = np.full(len(pw), float(transmissivity))
         t_info = {"source": "given"}
-    wxy = pw[["x", "y"]].to_numpy(float) * crs_to_m
-    s_m = pumping.superpose_drawdown_grid(grid.x_centers() * crs_to_m, grid.y_centers() * crs_to_m, wxy,
-                                          pw["rate_m3d"].to_numpy(float), float(days), T=float(transmissivity),
-                                          S=float(storativity), r_min=well_radius_m)
-    s_len = s_m / len_m
-    s_len = np.where(np.isfinite(head), s_len, np.nan)
+    pw["thickness_m"] = b_m if transmissivity is None else np.nan
+    pw["transmissivity_m2d"] = t_well
+    t_of = dict(zip(pw["well_id"], t_well))
+    xc, yc = grid.x_centers() * crs_to_m, grid.y_centers() * crs_to_m
+    valid = np.isfinite(head)
+    # the adjustment to unpumped conditions: every baseline record's Theis drawdown at the window's end
+    adj_terms = None
+    if from_unpumped and len(records):
+        day = pd.Timedelta(days=1)
+        since_start = ((window["end"] - records["start"]) / day).to_numpy(float)
+        since_stop = ((window["end"] - records["end"]) / day).to_numpy(float)
+        idx, q_terms, t_terms = pumping.history_terms(records["rate_m3d"].to_numpy(float), since_start, since_stop)
+        if len(idx):
+            rec_xy = records[["x", "y"]].to_numpy(float)[idx] * crs_to_m
+            rec_t = np.array([t_of[w] for w in records["well_id"].to_numpy()[idx]])
+            adj_terms = (rec_xy, q_terms, t_terms, rec_t)
+
+    def superpose(points_m=None):
+        """Scenario drawdown and unpumped adjustment (m) on the grid, or at points (m coordinates)."""
+        q = (pw["scenario_rate_m3d"] if from_unpumped else pw["change_m3d"]).to_numpy(float)
+        on = q != 0
+        terms = [(wxy[on] * crs_to_m, q[on], float(days), t_well[on], 1.0)]
+        if adj_terms is not None:
+            terms.append(adj_terms + (-1.0,))
+        shape = (len(yc), len(xc)) if points_m is None else (len(points_m),)
+        s, adj = np.zeros(shape), np.zeros(shape)
+        for (txy, tq, tt, tT, sign) in terms:
+            if len(tq) == 0:
+                continue
+            if points_m is None:
+                v = pumping.superpose_drawdown_grid(xc, yc, txy, tq, tt, T=tT, S=float(storativity),
+                                                    r_min=well_radius_m)
+            else:
+                v = pumping.superpose_drawdown(points_m, txy, tq, tt, T=tT, S=float(storativity),
+                                               r_min=well_radius_m)
+            if sign > 0:
+                s += v
+            else:
+                adj += v
+        return s, adj
+
+    s_m, adj_m = superpose()
+    s_len = np.where(valid, s_m / len_m, np.nan)
+    start_head = np.where(valid, head + adj_m / len_m, np.nan)  # the measured surface, or unpumped
+    after = start_head - s_len
+    # the unit's top and bottom on the grid: where the scenario takes the head below them
+    top_g, bot_g = np.full(head.shape, np.nan), np.full(head.shape, np.nan)
+    rr, cc = np.nonzero(valid)
+    if len(rr):
+        t_v, b_v = unit_levels_at(store, unit, np.column_stack([grid.x_centers()[cc], grid.y_centers()[rr]]))
+        top_g[rr, cc], bot_g[rr, cc] = t_v, b_v
+    with np.errstate(invalid="ignore"):
+        cells = {"below_unit_top": int(np.sum(after < top_g)),
+                 "taken_below_unit_top": int(np.sum((after < top_g) & (start_head >= top_g))),
+                 "below_unit_bottom": int(np.sum(after < bot_g)), "valid": int(valid.sum())}
     out = ensure_folder(out)
-    dd_tif = write_geotiff(unit_path(out, unit, "drawdown.tif"), grid, [s_len], crs=store.settings.crs,
-                           descriptions=[f"drawdown ({store.settings.length_unit})"], tags={"caution": CAUTION})
-    hd_tif = write_geotiff(unit_path(out, unit, "head_drawdown.tif"), grid, [head - s_len], crs=store.settings.crs,
-                           descriptions=[f"head after {days:g} d of pumping ({store.settings.length_unit})"],
-                           tags={"caution": CAUTION})
+    tail = "drawdown" if stem is None else f"drawdown_{stem}"
+    what = ("total drawdown of all pumping, from unpumped heads" if from_unpumped
+            else "drawdown change against the baseline in the measured heads (negative: recovery)")
+    dd_tif = write_geotiff(unit_path(out, unit, f"{tail}.tif"), grid, [s_len], crs=store.settings.crs,
+                           descriptions=[f"{what} ({L})"], tags={"caution": CAUTION})
+    hd_tif = write_geotiff(unit_path(out, unit, "head_drawdown.tif" if stem is None else f"head_{stem}.tif"), grid,
+                           [after], crs=store.settings.crs,
+                           descriptions=[f"head after {days:g} d of the scenario ({L})"], tags={"caution": CAUTION})
     # springs and monitoring zones of the unit: exact drawdown at their locations
     members = _unit_members(store.read("units"), unit)
     springs = store.read("springs", ["spring_id", "x", "y", "unit"])
@@ -356,23 +912,82 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
                       "y": springs["y"]}),
         pd.DataFrame({"kind": "monitoring zone", "id": zones["well_id"], "zone_id": zones["zone_id"],
                       "x": zones["x"], "y": zones["y"]})], ignore_index=True)
-    if not points.empty:
-        points["drawdown"] = pumping.superpose_drawdown(points[["x", "y"]].to_numpy(float) * crs_to_m, wxy,
-                                                        pw["rate_m3d"].to_numpy(float), float(days),
-                                                        T=float(transmissivity), S=float(storativity),
-                                                        r_min=well_radius_m) / len_m
-    else:
-        points["drawdown"] = []
-    impacts = points[points["drawdown"] > threshold].sort_values("drawdown", ascending=False)
-    impacts_csv = write_csv(unit_path(out, unit, "drawdown_impacts.csv"), impacts)
-    side = {"unit": unit, "days": days, "storativity": storativity, "transmissivity_m2_per_d": transmissivity,
-            "transmissivity": t_info, "wells": pw.to_dict(orient="records"), "rate_unit_of_wells": "m3/d",
-            "threshold": threshold, "length_unit": store.settings.length_unit,
+    pxy = points[["x", "y"]].to_numpy(float).reshape(-1, 2)
+    s_pt, adj_pt = superpose(pxy * crs_to_m) if len(points) else (np.zeros(0), np.zeros(0))
+    points["drawdown"] = s_pt / len_m
+    points["head_before"] = flow.values_at(grid.x0, grid.y0, grid.cell, head, pxy) + adj_pt / len_m
+    points["head_after"] = points["head_before"] - points["drawdown"]
+    top_pt, bot_pt = unit_levels_at(store, unit, pxy)
+    points["unit_top_elev"], points["unit_bottom_elev"] = top_pt, bot_pt
+    after_pt = points["head_after"].to_numpy(float)
+    with np.errstate(invalid="ignore"):
+        points["below_unit_top"] = [bool(a < t) if np.isfinite(t) else None for a, t in zip(after_pt, top_pt)]
+        points["below_unit_bottom"] = [bool(a < b) if np.isfinite(b) else None for a, b in zip(after_pt, bot_pt)]
+        taken = ((after_pt < top_pt) & (points["head_before"].to_numpy(float) >= top_pt)) | (after_pt < bot_pt)
+    impacts = points[(points["drawdown"] > threshold) | taken].sort_values("drawdown", ascending=False)
+    impacts = impacts.assign(length_unit=L)
+    impacts_csv = write_csv(unit_path(out, unit, "drawdown_impacts.csv" if stem is None
+                                      else f"drawdown_{stem}_impacts.csv"), impacts)
+    if cells["taken_below_unit_top"]:
+        warnings.append(f"the scenario takes the head below the top of unit {unit} in {cells['taken_below_unit_top']} "
+                        "cells (confined to unconfined: Theis with a confined S then understates drawdown)")
+    if cells["below_unit_bottom"]:
+        warnings.append(f"the head after the scenario is below the bottom of unit {unit} in "
+                        f"{cells['below_unit_bottom']} cells (the unit would be dewatered there: the computed "
+                        "drawdown is not attainable)")
+    rate_unit_store = _store_rate_unit(store)
+    base_rows = []
+    for w in base.itertuples(index=False):
+        mine = records[records["well_id"] == w.well_id]
+        base_rows.append({
+            "well_id": w.well_id, "x": float(w.x), "y": float(w.y),
+            "rate": float(_in_store_rate(store, w.rate_m3d)), "rate_unit": rate_unit_store,
+            "stopped_in_window": bool(w.stopped_in_window),
+            "records": [{"zone_id": r.zone_id, "start": r.start.isoformat(),
+                         "end": None if pd.isna(r.end) else r.end.isoformat(),
+                         "rate": float(r.rate), "rate_unit": r.rate_unit} for r in mine.itertuples(index=False)]})
+    changes = [{"well_id": r.well_id, "status": r.status, "x": r.x, "y": r.y,
+                "baseline_rate": float(_in_store_rate(store, r.baseline_rate_m3d)),
+                "scenario_rate": float(_in_store_rate(store, r.scenario_rate_m3d)),
+                "change": float(_in_store_rate(store, r.change_m3d)), "rate_unit": rate_unit_store}
+               for r in pw.itertuples(index=False) if r.status != "unchanged"]
+    mode = "from unpumped" if from_unpumped else "change from baseline"
+    side = {"unit": unit, "scenario": name, "mode": mode, "days": days, "storativity": storativity,
+            "baseline": {
+                "head_window": window_record(window),
+                "head_surface": str(unit_path(folder, unit, "head.tif")),
+                "wells": base_rows,
+                "meaning": "measured heads already hold the cones of these wells (pumping records active during "
+                           "the head window; rate at the window's end)"},
+            "changes": changes,
+            "result": (("total drawdown of all pumping (baseline wells at their scenario rates plus proposed "
+                        "wells) for the duration, on the head surface adjusted to unpumped conditions by adding "
+                        "back the baseline records' Theis drawdown at the end of the head window (time since each "
+                        "record's start, less the recovery since its stop)") if from_unpumped else
+                       ("change against the baseline: proposed wells and changed rates add drawdown, stopped wells "
+                        "give recovery (negative drawdown), unchanged baseline wells give none")),
+            "transmissivity_m2_per_d": float(np.median(t_well)), "transmissivity": t_info,
+            "wells": [{"well_id": r.well_id, "status": r.status, "origin": r.origin, "x": r.x, "y": r.y,
+                       "baseline_rate_m3d": r.baseline_rate_m3d, "scenario_rate_m3d": r.scenario_rate_m3d,
+                       "change_m3d": r.change_m3d, "transmissivity_m2_per_d": r.transmissivity_m2d,
+                       "thickness_m": None if not np.isfinite(r.thickness_m) else r.thickness_m}
+                      for r in pw.itertuples(index=False)],
+            "rate_unit_of_wells": "m3/d", "threshold": threshold, "length_unit": L,
+            "cells": cells, "warnings": warnings,
             "method": "Theis (1935) superposition, no image wells (no boundaries)",
             "max_drawdown": float(np.nanmax(s_len)) if np.isfinite(s_len).any() else None,
+            "min_drawdown": float(np.nanmin(s_len)) if np.isfinite(s_len).any() else None,
             "caution": CAUTION + " Theis assumes a uniform, infinite, confined aquifer; boundaries, leakage and "
                        "karst conduits change real drawdown.",
             "files": {"drawdown": str(dd_tif), "head": str(hd_tif), "impacts": str(impacts_csv)}}
-    side["files"]["sidecar"] = str(write_sidecar(unit_path(out, unit, "drawdown.json"), side))
+    # the K tests behind T (none when T was given); the head surface's own selection is in its sidecar
+    side["selection"] = k_selection if transmissivity is None else selection_record(policy, [])
+    side["head_surface_selection"] = sidecar_selection(unit_path(folder, unit, "head.json"))
+    side["in_store_units"] = _drawdown_in_store_units(L, side)
+    if from_unpumped:
+        side["adjustment_to_unpumped"] = {
+            "max": float(np.nanmax(np.where(valid, adj_m / len_m, np.nan))) if valid.any() else None,
+            "length_unit": L, "evaluated_at": window["end"].isoformat()}
+    side["files"]["sidecar"] = str(write_sidecar(unit_path(out, unit, f"{tail}.json"), side))
     side["impacts"] = impacts
     return side

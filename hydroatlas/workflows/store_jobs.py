@@ -9,6 +9,7 @@ import pandas as pd
 
 from .. import assign, quality, stats
 from ..errors import InsufficientDataError, ParameterError
+from ..selection import SelectionPolicy, left_out_by_unit, select_ktests, selection_record
 from ..store import Store, create_store
 from ..store.importers import ImportReport, import_file
 
@@ -61,35 +62,95 @@ def zone_assignment(store: Store) -> pd.DataFrame:
     return assign.assign_zones(store.read("zones"), store.read("picks"), store.read("wells"), store.read("units"))
 
 
-def tests_with_units(store: Store, assignment: pd.DataFrame | None = None) -> pd.DataFrame:
-    """K tests joined with their zone's assigned unit and straddle flag."""
+def tests_with_units(store: Store, assignment: pd.DataFrame | None = None,
+                     policy: SelectionPolicy | None = None) -> pd.DataFrame:
+    """K tests that pass the selection policy (None: the default), joined with their zone's unit and flags.
+
+    See :func:`hydroatlas.selection.select_ktests`, which also returns what was left out.
+    """
     asg = zone_assignment(store) if assignment is None else assignment
-    tests = store.read("ktests", ["well_id", "zone_id", "test_id", "tested_on", "method", "k_ms", "quality"])
-    return tests.merge(asg[["well_id", "zone_id", "unit", "straddles", "overlap_fraction", "thickness"]],
-                       on=["well_id", "zone_id"], how="left")
+    return select_ktests(store, policy, asg)[0]
 
 
-def unit_stats(store: Store, *, unit: str | None = None, per: str = "test", k_unit: str = "m/d",
-               exclude_straddles: bool = False, exclude_poor: bool = False) -> list[dict]:
-    """Per-unit K statistics (SPEC 2.4), optionally for one unit code."""
+def store_k_unit(store: Store, k_unit: str | None = None) -> str:
+    """``k_unit`` in its canonical spelling, or the store's K unit (its length unit per day) when None."""
+    from ..quantities import normalize_unit, store_units
+
+    if k_unit is None:
+        return store_units(store.settings.length_unit).k
+    return normalize_unit(k_unit, "hydraulic conductivity")
+
+
+def _poor_policy(policy: SelectionPolicy | None, exclude_poor: bool) -> SelectionPolicy | None:
+    """``exclude_poor`` (the old option, now the default) against a policy that brings poor tests back."""
+    if exclude_poor and policy is not None and policy.include_poor:
+        raise ParameterError("give --include-poor or --exclude-poor, not both")
+    return policy
+
+
+def unit_stats_selected(store: Store, *, unit: str | None = None, per: str = "test", k_unit: str | None = None,
+                        exclude_straddles: bool = False, exclude_poor: bool = False,
+                        policy: SelectionPolicy | None = None) -> tuple[list[dict], dict]:
+    """:func:`unit_stats` and the selection behind it (``{"policy": ..., "left_out": [...]}``)."""
+    k_unit = store_k_unit(store, k_unit)
     units = store.read("units")
     if unit is not None and unit not in set(units["code"]):
         raise ParameterError(f"unit {unit!r} is not in the store; known units: {', '.join(units['code'])}")
-    rows = stats.unit_statistics(tests_with_units(store), units, per=per, k_unit=k_unit,
+    policy = _poor_policy(policy, exclude_poor)
+    asg = zone_assignment(store)
+    tests, left_out = select_ktests(store, policy, asg)
+    rows = stats.unit_statistics(tests, units, per=per, k_unit=k_unit,
                                  exclude_straddles=exclude_straddles, exclude_poor=exclude_poor)
-    return [r for r in rows if unit is None or r["unit"] == unit]
+    members = {c: {c} for c in units["code"]}
+    for code, chain in assign.unit_ancestors(units).items():
+        for anc in chain:
+            members.setdefault(anc, {anc}).add(code)
+    n_out = left_out_by_unit(left_out, asg, members)
+    for r in rows:
+        r["n_left_out"] = int(n_out.get(r["unit"], 0))
+    return [r for r in rows if unit is None or r["unit"] == unit], selection_record(policy, left_out)
 
 
-def well_profiles(store: Store, *, k_unit: str = "m/d", unit: str | None = None,
-                  exclude_poor: bool = False) -> pd.DataFrame:
-    """Per-well transmissivity and effective K_h / K_v over tested zones."""
-    tests = tests_with_units(store)
-    if exclude_poor:
-        tests = tests[tests["quality"].ne("poor") | tests["quality"].isna()]
+def unit_stats(store: Store, *, unit: str | None = None, per: str = "test", k_unit: str | None = None,
+               exclude_straddles: bool = False, exclude_poor: bool = False,
+               policy: SelectionPolicy | None = None) -> list[dict]:
+    """Per-unit K statistics (SPEC 2.4), optionally for one unit code; K in ``k_unit`` (default: the store's K
+    unit, its length unit per day).
+
+    Tests pass the selection policy first (poor-quality tests are out by default; ``exclude_poor`` is kept
+    for old callers and changes nothing then). Each row adds ``n_left_out``: the unit's tests (sub-units
+    included) that the policy left out. The result is a list whose ``selection`` attribute holds the policy
+    and every test it left out (:class:`UnitStatistics`).
+    """
+    rows, selection = unit_stats_selected(store, unit=unit, per=per, k_unit=k_unit,
+                                          exclude_straddles=exclude_straddles, exclude_poor=exclude_poor,
+                                          policy=policy)
+    return UnitStatistics(rows, selection)
+
+
+class UnitStatistics(list):
+    """The rows of :func:`unit_stats`: a list of dicts, with the selection behind them in ``selection``
+    (``{"policy": ..., "left_out": [...]}``)."""
+
+    def __init__(self, rows=(), selection: dict | None = None):
+        super().__init__(rows)
+        self.selection = selection if selection is not None else {"policy": None, "left_out": []}
+
+
+def well_profiles(store: Store, *, k_unit: str | None = None, unit: str | None = None,
+                  exclude_poor: bool = False, policy: SelectionPolicy | None = None) -> pd.DataFrame:
+    """Per-well transmissivity and effective K_h / K_v over tested zones (tests that pass the policy).
+
+    The selection is in ``frame.attrs["selection"]``.
+    """
+    policy = _poor_policy(policy, exclude_poor)
+    tests, left_out = select_ktests(store, policy, zone_assignment(store))
     zone_k = stats.zone_log_means(tests).merge(
         tests[["well_id", "zone_id", "thickness"]].drop_duplicates(), on=["well_id", "zone_id"])
-    out = stats.well_profiles(zone_k, k_unit=k_unit, length_unit=store.settings.length_unit)
-    return out if unit is None else out[out["unit"] == unit]
+    out = stats.well_profiles(zone_k, k_unit=store_k_unit(store, k_unit), length_unit=store.settings.length_unit)
+    out = out if unit is None else out[out["unit"] == unit].reset_index(drop=True)
+    out.attrs["selection"] = selection_record(policy, left_out)
+    return out
 
 
 def check_store(store: Store) -> list[dict]:
@@ -169,12 +230,14 @@ def reduce_slug_tests(store: Store, *, method: str = "hvorslev", write: bool = T
     aquifer thickness (Lw = zone bottom depth - static depth). The fit, method and geometry are kept in the
     K test's ``attrs``; repeat tests of a zone whose K differ by more than 25 % are flagged ``repeat_disagree``.
     A geometry row without ``tested_on`` gets the date of the reduction, said in ``attrs``.
+    K is reported (columns ``k``, ``k_unit``) and stored in the store's K unit (ft/d in a feet store, m/d in
+    a metre store), with ``k_ms`` in m/s beside it.
     """
     import json
     from datetime import date
 
     from .. import slug
-    from ..quantities import LENGTH_UNITS
+    from ..quantities import LENGTH_UNITS, k_from_ms
 
     if method not in SLUG_METHODS:
         raise ParameterError(f"unknown slug-test method {method!r}; expected one of {', '.join(SLUG_METHODS)}")
@@ -223,6 +286,10 @@ def reduce_slug_tests(store: Store, *, method: str = "hvorslev", write: bool = T
                                    **({"tested_on_unknown": True} if pd.isna(gm["tested_on"]) else {})})
         rows.append(row)
     out = pd.DataFrame(rows)
+    # reported and stored in the store's K unit (its length unit per day); k_ms (m/s) kept beside it
+    k_unit = store_k_unit(store)
+    out["k"] = k_from_ms(out["k_ms"].to_numpy(float), k_unit)
+    out["k_unit"] = k_unit
     out["repeat_disagree"] = False
     ok = out["k_ms"].notna()
     for _, g in out[ok].groupby(["well_id", "zone_id"]):
@@ -234,7 +301,7 @@ def reduce_slug_tests(store: Store, *, method: str = "hvorslev", write: bool = T
             "well_id": good["well_id"], "zone_id": good["zone_id"],
             "test_id": "slug:" + good["test_id"].astype(str) + ":" + method,
             "tested_on": good["tested_on"].where(good["tested_on"].notna(), date.today().isoformat()),
-            "method": "slug", "k": good["k_ms"], "k_unit": "m/s", "k_ms": good["k_ms"],
+            "method": "slug", "k": good["k"], "k_unit": k_unit, "k_ms": good["k_ms"],
             "quality": np.where(good["repeat_disagree"], "fair", "good"),
             "source": f"hydroatlas slug reduction ({method})", "attrs": good["attrs"],
             "source_file": "slug reduction", "source_row": np.arange(1, len(good) + 1)})

@@ -10,6 +10,8 @@ import pandas as pd
 from .. import assign
 from ..errors import InsufficientDataError, ParameterError
 from ..export.names import ensure_folder, unit_path
+from ..selection import DEFAULT_TOLERANCE_DAYS, SelectionPolicy, select_ktests, selection_record
+from ..selection import select_heads as select_zone_heads
 from ..store import Store
 from .store_jobs import (
     CAUTION, _crs_to_m, _length_to_m, _unit_members, _window, tests_with_units, unit_stats, zone_assignment,
@@ -22,15 +24,19 @@ AUTO_GLOBAL_MAX = 400
 METHODS = ("kriging", "uk", "idw")
 
 
-def zone_heads(store: Store, *, window=None, at: str | None = None, assignment=None) -> pd.DataFrame:
-    """One head per zone (median in the window, nearest to a date, or median of all) with its unit."""
-    from ..heads import select_heads
+def zone_heads(store: Store, *, window=None, at: str | None = None, assignment=None,
+               policy: SelectionPolicy | None = None,
+               tolerance_days: float = DEFAULT_TOLERANCE_DAYS) -> pd.DataFrame:
+    """One head per zone (median in the window, nearest to a date within the tolerance, or median of all) with
+    its unit, from the readings that pass the selection policy (None: the default policy).
 
+    What the policy left out is in ``frame.attrs["selection"]``; see :func:`hydroatlas.selection.select_heads`.
+    """
     asg = zone_assignment(store) if assignment is None else assignment
-    sel = select_heads(store.read("heads", ["well_id", "zone_id", "measured_at", "head"]),
-                       window=_window(window), at=at)
-    return sel.merge(asg[["well_id", "zone_id", "unit", "mid_elev", "top_elev", "bottom_elev", "x", "y"]],
-                     on=["well_id", "zone_id"], how="left")
+    zh, left_out = select_zone_heads(store, policy, window=_window(window), at=at, tolerance_days=tolerance_days,
+                                     assignment=asg)
+    zh.attrs["selection"] = selection_record(policy, left_out)
+    return zh
 
 
 def unit_intervals(store: Store, units: pd.DataFrame | None = None) -> pd.DataFrame:
@@ -45,33 +51,43 @@ def unit_intervals(store: Store, units: pd.DataFrame | None = None) -> pd.DataFr
     return allp[["well_id", "unit", "top_elev", "bottom_elev"]]
 
 
-def verticals(store: Store, *, window=None, at: str | None = None):
+def verticals(store: Store, *, window=None, at: str | None = None, policy: SelectionPolicy | None = None,
+              tolerance_days: float = DEFAULT_TOLERANCE_DAYS):
     """Head profiles of multi-zone wells and the differences between successive zones.
 
+    Heads and the K tests behind the leakage follow the selection policy (None: the default).
     Returns (pairs, profiles) DataFrames; see :func:`hydroatlas.heads.vertical_differences`.
+    ``pairs.attrs["selection"]`` holds the policy and what it left out (heads and K tests).
     """
     from ..heads import head_profiles, vertical_differences
+    from .store_jobs import unit_stats_selected
 
     asg = zone_assignment(store)
-    zh = zone_heads(store, window=window, at=at, assignment=asg)
+    zh, heads_out = select_zone_heads(store, policy, window=_window(window), at=at, tolerance_days=tolerance_days,
+                                      assignment=asg)
     profiles = head_profiles(zh[["well_id", "zone_id", "head", "n_readings"]], asg)
     units = store.read("units")
-    k_ms = {r["unit"]: (r["k_geomean"] if r["k_geomean"] is not None else float("nan"))
-            for r in unit_stats(store, k_unit="m/s")}
+    rows, k_selection = unit_stats_selected(store, k_unit="m/s", policy=policy)
+    k_ms = {r["unit"]: (r["k_geomean"] if r["k_geomean"] is not None else float("nan")) for r in rows}
     pairs = vertical_differences(profiles, units, k_ms, unit_intervals(store, units),
                                  length_to_m=_length_to_m(store))
     pairs["leakage_unit"] = f"{store.settings.length_unit}/d"
+    pairs.attrs["selection"] = selection_record(policy, heads_out + k_selection["left_out"])
     return pairs, profiles
 
 
 def surface_points(store: Store, unit: str, quantity: str, *, window=None, at: str | None = None,
-                   lower_unit: str | None = None):
+                   lower_unit: str | None = None, policy: SelectionPolicy | None = None,
+                   tolerance_days: float = DEFAULT_TOLERANCE_DAYS):
     """Well locations and values of a quantity for one unit (one value per well).
 
+    Heads and K tests follow the selection policy (None: the default); ``info["selection"]`` holds the
+    policy and what it left out.
     head: median head of each zone in the window, averaged over the well's zones in the unit;
-    logk: log10 of K in m/d, the mean of log10 K of the well's tests in the unit;
-    dhead: the unit's head minus the head of ``lower_unit`` (default: the next lower unit with
-    heads) at the same well.
+    logk: log10 of K in the store's K unit (ft/d in a feet store, m/d in a metre store; ``info["k_unit"]``),
+    the mean of log10 K of the well's tests in the unit;
+    dhead: the unit's head minus the head of ``lower_unit`` at the same well (default: the next
+    aquifer below, across any aquitard or confining unit; see :func:`default_lower_unit`).
     """
     if quantity not in QUANTITIES:
         raise ParameterError(f"unknown quantity {quantity!r}; expected one of {', '.join(QUANTITIES)}")
@@ -80,14 +96,24 @@ def surface_points(store: Store, unit: str, quantity: str, *, window=None, at: s
     wells = store.read("wells", ["well_id", "x", "y"]).set_index("well_id")
     info = {"unit": unit, "quantity": quantity}
     if quantity == "logk":
-        t = tests_with_units(store)
+        t, left_out = select_ktests(store, policy, zone_assignment(store))
+        info["selection"] = selection_record(policy, left_out)
         t = t[t["unit"].isin(members)]
         if t.empty:
             raise InsufficientDataError(f"unit {unit} has no K tests")
-        per_well = np.log10(t["k_ms"] * 86_400.0).groupby(t["well_id"]).mean()
-        info["value_unit"] = "log10(m/d)"
+        from ..quantities import k_from_ms
+        from .store_jobs import store_k_unit
+
+        k_unit = store_k_unit(store)
+        lg = pd.Series(np.log10(k_from_ms(t["k_ms"].to_numpy(float), k_unit)), index=t.index)
+        per_well = lg.groupby(t["well_id"]).mean()
+        info["value_unit"] = f"log10({k_unit})"
+        info["k_unit"] = k_unit
     else:
-        zh = zone_heads(store, window=window, at=at)
+        zh, left_out = select_zone_heads(store, policy, window=_window(window), at=at,
+                                         tolerance_days=tolerance_days, assignment=zone_assignment(store))
+        info["selection"] = selection_record(policy, left_out)
+        info["tolerance_days"] = float(tolerance_days) if at is not None else None
         per_unit = zh.dropna(subset=["unit"]).groupby(["well_id", "unit"])["head"].mean().reset_index()
         here = per_unit[per_unit["unit"].isin(members)].groupby("well_id")["head"].mean()
         info["value_unit"] = store.settings.length_unit
@@ -110,13 +136,17 @@ def surface_points(store: Store, unit: str, quantity: str, *, window=None, at: s
                 raise InsufficientDataError(f"no unit below {unit} has heads; dhead needs heads in {unit} and "
                                             "in the unit below at the same wells")
             if lower_unit is not None:
-                _unit_members(units, lower_unit)
-                if lower_unit not in set(lower["unit"]):
-                    raise InsufficientDataError(f"unit {lower_unit} has no heads below {unit}")
                 below_code = lower_unit
+                info["lower_unit_rule"] = "given (--lower-unit)"
             else:
-                below_code = min(set(lower["unit"]), key=rank.get)
-            below = lower[lower["unit"] == below_code].groupby("well_id")["head"].mean()
+                below_code, info["lower_unit_rule"] = default_lower_unit(units, unit, set(lower["unit"]))
+            below_members = _unit_members(units, below_code)
+            below = lower[lower["unit"].isin(below_members)]
+            if below.empty:
+                raise InsufficientDataError(
+                    f"unit {below_code} has no heads below {unit}"
+                    + ("" if lower_unit is not None else f" ({info['lower_unit_rule']}); give --lower-unit"))
+            below = below.groupby("well_id")["head"].mean()
             per_well = (here - below).dropna()
             info["lower_unit"] = below_code
     per_well = per_well.dropna()
@@ -166,17 +196,24 @@ def build_surface(store: Store, unit: str, quantity: str, *, method: str = "krig
                   at: str | None = None, cell: float | None = None, variogram: str = "spherical", nugget=None,
                   sill=None, range_=None, neighbors: int | str | None = "auto", buffer: float | None = None,
                   out=".", fallback_idw: bool = False, max_cells: int | None = None, workers: int = 1,
-                  lower_unit: str | None = None, progress=None) -> dict:
+                  lower_unit: str | None = None, progress=None, policy: SelectionPolicy | None = None,
+                  tolerance_days: float = DEFAULT_TOLERANCE_DAYS, use_extent: bool = True) -> dict:
     """Interpolate one quantity of one unit onto a grid and write GeoTIFF + JSON sidecar (+ gradients for heads).
 
+    Heads and K tests follow the selection policy (None: the default); the sidecar's ``selection`` says
+    which policy and what it left out.
+    Cells outside the unit's extent from the picks (for dhead, outside either unit's) are no-data unless
+    ``use_extent`` is False; the sidecar's ``extent`` says whether it was applied and how many cells it removed.
     Returns the sidecar dict with the written paths under ``files``.
     """
     from ..export.rasters import write_geotiff, write_sidecar
     from ..interp import crossval
     from ..interp.grid import MAX_CELLS, GridSpec, mask_from_buffer, mask_from_polygons, predict_grid
+    from ..quantities import crs_unit_label
 
     crs_to_m = _crs_to_m(store)
-    xy, z, well_ids, info = surface_points(store, unit, quantity, window=window, at=at, lower_unit=lower_unit)
+    xy, z, well_ids, info = surface_points(store, unit, quantity, window=window, at=at, lower_unit=lower_unit,
+                                           policy=policy, tolerance_days=tolerance_days)
     if neighbors == "auto":  # one global system for up to AUTO_GLOBAL_MAX points: no neighbourhood seams
         neighbors = None if len(z) <= AUTO_GLOBAL_MAX else 16
     needed = {"kriging": 3, "uk": 4, "idw": 1}[method] if method in METHODS else 1
@@ -203,6 +240,21 @@ def build_surface(store: Store, unit: str, quantity: str, *, method: str = "krig
         dist = buffer if buffer is not None else 0.25 * max(xmax - xmin, ymax - ymin)
         mask = mask_from_buffer(grid, xy, dist)
         mask_info = {"kind": "buffer around data", "distance": dist}
+    # a unit present in part of the area is not mapped where its picks show it absent
+    extent_info = {"applied": False, "reason": "not asked (use_extent=False)"}
+    if use_extent:
+        codes = [unit] + ([info["lower_unit"]] if info.get("lower_unit") else [])
+        inside_ext, extent_info = extent_mask(store, codes, grid)
+        limited = any(u["limited"] for u in extent_info["units"].values())
+        extent_info.update(applied=limited, cells_removed=int((mask & ~inside_ext).sum()))
+        if not limited:
+            extent_info["reason"] = "no well shows the unit absent: present everywhere"
+        data_in = extent_mask(store, codes, xy)[0]
+        extent_info["data_outside"] = [w for w, ok in zip(well_ids, data_in) if not ok]
+        if limited and not (mask & inside_ext).any():
+            raise InsufficientDataError(f"no cell of the {quantity} grid of unit {unit} lies inside the unit's "
+                                        "extent from the picks")
+        mask = mask & inside_ext
     est, std = predict_grid(model, grid, mask=mask, workers=workers, progress=progress)
     cv = {}
     for m_name in METHODS:
@@ -219,11 +271,15 @@ def build_surface(store: Store, unit: str, quantity: str, *, method: str = "krig
         names.append("kriging standard deviation")
     tif = write_geotiff(unit_path(out, unit, f"{quantity}.tif"), grid, bands, crs=store.settings.crs, descriptions=names,
                         tags={"caution": CAUTION, "quantity": quantity, "unit": unit})
-    sidecar = {"unit": unit, "quantity": quantity, "value_unit": info["value_unit"], **minfo,
+    sidecar = {"unit": unit, "quantity": quantity, "value_unit": info["value_unit"], "k_unit": info.get("k_unit"),
+               "distance_unit": crs_unit_label(store.settings.crs.axis_info[0].unit_name), **minfo,
                "n_points": int(len(z)), "wells": well_ids, "springs_as_heads": info.get("springs_as_heads", []),
-               "window": info.get("window"), "at": info.get("at"),
-               "lower_unit": info.get("lower_unit"), "cross_validation": cv, "selected_method": minfo["method"],
-               "grid": grid.to_dict(), "mask": mask_info, "crs": store.settings.crs.to_string(),
+               "window": info.get("window"), "at": info.get("at"), "tolerance_days": info.get("tolerance_days"),
+               "selection": info["selection"],
+               "lower_unit": info.get("lower_unit"), "lower_unit_rule": info.get("lower_unit_rule"),
+               "cross_validation": cv, "selected_method": minfo["method"],
+               "grid": grid.to_dict(), "mask": mask_info, "extent": extent_info,
+               "crs": store.settings.crs.to_string(),
                "bands": names, "nodata": -9999.0, "store": store.location, "caution": CAUTION,
                "files": {"raster": str(tif)}}
     if quantity == "head":
@@ -311,20 +367,26 @@ def write_gradients(store: Store, unit: str, grid, head, out, *, crs_to_m: float
     return {"gradient": str(tif), "flow_arrows": f"{gpkg}:flow_arrows"}
 
 
-def three_point_wells(store: Store, unit: str, well_ids: list[str], *, window=None, at=None) -> dict:
-    """Three-point gradient and flow azimuth from the heads of three wells in one unit."""
+def three_point_wells(store: Store, unit: str, well_ids: list[str], *, window=None, at=None,
+                      policy: SelectionPolicy | None = None, tolerance_days: float = DEFAULT_TOLERANCE_DAYS) -> dict:
+    """Three-point gradient and flow azimuth from the heads of three wells in one unit (heads that pass the
+    selection policy; None: the default)."""
     from .. import flow
 
     if len(well_ids) != 3:
         raise ParameterError(f"give exactly three wells; got {len(well_ids)}")
-    xy, z, wells, _ = surface_points(store, unit, "head", window=window, at=at)
+    xy, z, wells, info = surface_points(store, unit, "head", window=window, at=at, policy=policy,
+                                        tolerance_days=tolerance_days)
     where = {w: i for i, w in enumerate(wells)}
     missing = [w for w in well_ids if w not in where]
     if missing:
-        raise ParameterError(f"well(s) {', '.join(missing)} have no head in unit {unit}")
+        why = sorted({f"{e['well_id']}: {e['reason']}" for e in info["selection"]["left_out"]
+                      if e["well_id"] in missing})
+        raise ParameterError(f"well(s) {', '.join(missing)} have no head in unit {unit}"
+                             + (f" (left out by the selection: {'; '.join(why)})" if why else ""))
     sel = [where[w] for w in well_ids]
     res = flow.three_point(xy[sel], z[sel] * _length_to_m(store) / _crs_to_m(store))
-    res.update({"unit": unit, "wells": well_ids, "heads": z[sel].tolist()})
+    res.update({"unit": unit, "wells": well_ids, "heads": z[sel].tolist(), "selection": info["selection"]})
     return res
 
 
@@ -345,3 +407,87 @@ def read_surface(folder, unit: str, quantity: str, store_path: str):
     if abs(t.e + t.a) > 1e-9 * abs(t.a) or t.b or t.d:
         raise ParameterError(f"{path} is not a north-up grid with square cells")
     return grid, band
+
+
+def read_logk_m_per_d(folder, unit: str, store: Store):
+    """A log-K surface made by `hydroatlas surface --quantity logk` as (grid, K in m/d, K unit of the surface).
+
+    The surface holds log10 of K in the unit its sidecar names (``k_unit``; older sidecars say it in
+    ``value_unit`` as 'log10(m/d)'); without a sidecar, the store's K unit.
+    """
+    import json
+    import re
+
+    from ..quantities import convert
+    from .store_jobs import store_k_unit
+
+    grid, logk = read_surface(folder, unit, "logk", store.location)
+    k_unit = None
+    side = unit_path(folder, unit, "logk.json")
+    if side.is_file():
+        meta = json.loads(side.read_text())
+        match = re.fullmatch(r"log10\((.+)\)", str(meta.get("value_unit", "")))
+        k_unit = meta.get("k_unit") or (match.group(1) if match else None)
+    k_unit = store_k_unit(store, k_unit)
+    return grid, convert(10.0 ** logk, k_unit, "m/d", "hydraulic conductivity"), k_unit
+
+
+# -- unit extent and the default lower unit (issue 10) ----------------------------------
+def default_lower_unit(units: pd.DataFrame, unit: str, with_heads=()) -> tuple[str, str]:
+    """The unit whose head a dhead surface of ``unit`` subtracts when none is given, and the rule used.
+
+    The next unit of role aquifer below ``unit`` in rank order, across any aquitard, confining or other
+    unit between them (the head step across an aquitard is the difference between the aquifers on its
+    two sides). Where no aquifer lies below, the next unit below that has heads (``with_heads``).
+    """
+    members = set(_unit_members(units, unit))
+    rank = dict(zip(units["code"], units["rank"]))
+    hi = max(rank[c] for c in members)
+    below = units[(units["rank"] > hi) & ~units["code"].isin(members)].sort_values("rank")
+    aquifers = below[below["role"] == "aquifer"]
+    if not aquifers.empty:
+        code = aquifers["code"].iloc[0]
+        crossed = [c for c in below["code"] if rank[c] < rank[code]]
+        return code, f"next aquifer below {unit}" + (f", across {', '.join(crossed)}" if crossed else "")
+    with_heads = [c for c in below["code"] if c in set(with_heads)]
+    if not with_heads:
+        raise InsufficientDataError(f"no unit below {unit} has heads; give --lower-unit")
+    return with_heads[0], f"next unit below {unit} with heads (no aquifer lies below it)"
+
+
+def unit_presence_of(store: Store, unit: str, units: pd.DataFrame | None = None) -> pd.DataFrame:
+    """Presence of a unit at every well from the store's picks (see :func:`hydroatlas.assign.unit_presence`)."""
+    units = store.read("units") if units is None else units
+    _unit_members(units, unit)
+    return assign.unit_presence(store.read("picks"), store.read("wells", ["well_id", "x", "y"]), units, unit)
+
+
+def extent_mask(store: Store, codes, points, *, rows_per_tile: int = 256) -> tuple[np.ndarray, dict]:
+    """True inside the extent of every unit in ``codes`` (where the nearest well with picks has it).
+
+    ``points`` is an array of shape (n, 2) in the store CRS, or a grid (:class:`~hydroatlas.interp.grid.GridSpec`,
+    cell centres, done in tiles of rows) giving a mask of the grid's shape. Returns the mask and a
+    summary for a sidecar: the rule, and per unit the number of wells that show it present, absent and
+    unknown.
+    """
+    units = store.read("units")
+    grid = points if hasattr(points, "centers") else None
+    inside = np.ones(grid.shape if grid is not None else len(points), bool)
+    per_unit = {}
+    for code in dict.fromkeys(c for c in codes if c is not None):
+        pres = unit_presence_of(store, code, units)
+        known = pres["present"].dropna().astype(bool)
+        per_unit[code] = {"wells_present": int(known.sum()), "wells_absent": int((~known).sum()),
+                          "wells_unknown": int(pres["present"].isna().sum()),
+                          "limited": bool((~known).any())}
+        if grid is None:
+            inside &= assign.inside_extent(pres, points)
+            continue
+        for r0 in range(0, grid.nrows, rows_per_tile):
+            r1 = min(grid.nrows, r0 + rows_per_tile)
+            inside[r0:r1] &= assign.inside_extent(pres, grid.centers(r0, r1)).reshape(r1 - r0, grid.ncols)
+    info = {"rule": "present where the nearest well with a known presence has the unit; a unit is absent at a "
+                    "well where the picks above and below its position touch or a pick of it has zero "
+                    "thickness, unknown where the log does not reach it",
+            "units": per_unit}
+    return inside, info
