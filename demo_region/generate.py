@@ -188,21 +188,25 @@ def build(out: Path) -> dict[str, int]:
             else:
                 head_rows.append([wid, zid, when, f"{val:.2f}", "", "", "good"])
 
-    # Slug tests at a few screened ULS wells: Hvorslev recoveries (slug in and slug out) from the zone's K.
+    # Slug tests at a few screened ULS wells: Hvorslev recoveries (slug in and slug out at different H0) from the
+    # zone's K. The noise draws come from the main generator, so the files after this section are unchanged.
     slug_rows, slug_geom = [], []
+    known = []  # test, well/zone, response, model, known K (m/s): written into README.md by hand from this list
     rc, rw, screen = 0.0254, 0.0508, 6.0
-    screened = [z for z in zones if z[4] == "screen" and z[6] == "ULS"][:5]
-    for wid, zid, top_d, bot_d, zkind, override, code in screened:
+    screened = [z for z in zones if z[4] == "screen" and z[6] == "ULS"]
+    for wid, zid, top_d, bot_d, zkind, override, code in screened[:5]:
         _, _, _, _, mu, sd, (lo, hi), _ = kparams[code]
         x, y = wxy[wid]
         k_ms = float(np.clip(10 ** (mu + sd * 0.8 * fields[code](np.array([x]), np.array([y]))[0]), lo, hi))
         t0 = rc * rc * np.log(screen / rw) / (2 * screen * k_ms)
-        for n, h0 in enumerate((0.5, -0.5), start=1):
+        for n, h0 in enumerate((0.5, -0.3), start=1):
             tid = f"SL{n}"
-            for t in np.linspace(0, 4 * t0, 40):
-                noise = 1 + 0.01 * rng.normal()
+            for t in np.linspace(0, 3 * t0, 40):
+                noise = 1 + 0.005 * rng.normal()  # 0.5 % of the reading
                 slug_rows.append([wid, zid, tid, f"{t:.3f}", f"{h0 * np.exp(-t / t0) * noise:.5f}"])
-            slug_geom.append([wid, zid, tid, rc, rw, screen, "", "", f"2022-05-{10 + n:02d}"])
+            slug_geom.append([wid, zid, tid, rc, rw, screen, "", "", f"2022-05-{10 + n:02d}", "", "", ""])
+            known.append((tid, f"{wid}/{zid}", "overdamped", "Hvorslev (1951)", k_ms))
+    _more_slug_tests(zones, wxy, slug_rows, slug_geom, known, screened)
 
     pumping = []
     rates = [("1500", "m3/d"), ("350", "gpm"), ("12", "L/s"), ("900", "m3/d")]
@@ -234,12 +238,135 @@ def build(out: Path) -> dict[str, int]:
     _write(out / "pumping.csv", ["well_id", "zone_id", "rate", "rate_unit", "start", "end"], pumping)
     _write(out / "slugtests.csv", ["well_id", "zone_id", "test_id", "t_s", "displacement"], slug_rows)
     _write(out / "sluggeometry.csv", ["well_id", "zone_id", "test_id", "casing_radius", "well_radius",
-                                      "screen_length", "aquifer_thickness", "static_depth", "tested_on"], slug_geom)
+                                      "screen_length", "aquifer_thickness", "static_depth", "tested_on",
+                                      "screen_top_depth", "confined", "geometry_kind"], slug_geom)
     _write(out / "springs.csv", ["spring_id", "x", "y", "elev", "name", "unit"], springs)
     _write(out / "discharge.csv", ["spring_id", "measured_at", "discharge", "rate_unit"], discharge)
     _write_areas(out / "areas.geojson")
     (out / "crs.txt").write_text(CRS + "\n")
-    return {"wells": len(wells), "zones": len(zones), "ktests": len(ktests), "heads": len(head_rows)}
+    return {"wells": len(wells), "zones": len(zones), "ktests": len(ktests), "heads": len(head_rows),
+            "slug tests": len(slug_geom), "known slug K": known}
+
+
+G = 9.80665  # m/s2, standard gravity
+WATER_VISCOSITY = 1.0e-6  # m2/s, kinematic viscosity of water near 20 degrees C (from memory)
+SLUG_SEED = SEED + 12  # the slug tests added for issue 12 draw their noise from their own generator
+
+
+def bouwer_rice_ln_re_rw(rw, le, lw, h):
+    """ln(Re/rw) of Bouwer and Rice (1976), with the polynomial fits of A, B, C in Le/rw (Van Rooy 1988, as
+    reproduced with Butler 1998); ln((H - Lw)/rw) capped at 6."""
+    x = le / rw
+    a = 1.4720 + 3.537e-2 * x - 8.148e-5 * x**2 + 1.028e-7 * x**3 - 6.484e-11 * x**4 + 1.573e-14 * x**5
+    b = 0.2372 + 5.151e-3 * x - 2.682e-6 * x**2 - 3.491e-10 * x**3 + 4.738e-13 * x**4
+    c = 0.7920 + 3.993e-2 * x - 5.743e-5 * x**2 + 3.858e-8 * x**3 - 9.659e-12 * x**4
+    first = 1.1 / np.log(lw / rw)
+    if h - lw <= 1e-9 * h:
+        return 1.0 / (first + c / x)
+    d = a + b * min(np.log((h - lw) / rw), 6.0)
+    assert d >= c  # the partially penetrating form, away from its join with the fully penetrating one
+    return 1.0 / (first + d / x)
+
+
+def cbp_head(alpha, beta):
+    """H/H0 of Cooper, Bredehoeft and Papadopulos (1967) at alpha = rw^2 S / rc^2 and beta = T t / rc^2.
+
+    (8 alpha / pi^2) * integral over u > 0 of exp(-beta u^2 / alpha) / (u D(u)) du, with
+    D(u) = (u J0(u) - 2 alpha J1(u))^2 + (u Y0(u) - 2 alpha Y1(u))^2, by adaptive quadrature on pieces.
+    """
+    from scipy import integrate, special
+
+    def f(u):
+        d = (u * special.j0(u) - 2 * alpha * special.j1(u)) ** 2 + (u * special.y0(u) - 2 * alpha * special.y1(u)) ** 2
+        return np.exp(-beta * u * u / alpha) / (u * d)
+
+    top = np.sqrt(alpha / beta) * 9.0  # exp(-81) beyond
+    edges = np.concatenate([[0.0], np.geomspace(1e-8, top, 60)])
+    total = sum(integrate.quad(f, a, b, limit=200, epsabs=0, epsrel=1e-10)[0] for a, b in zip(edges[:-1], edges[1:]))
+    return 8 * alpha / np.pi**2 * total
+
+
+def oscillator_head(t, *, c_d, le):
+    """Normalised head of the damped oscillator d2w/dtd2 + C_D dw/dtd + w = 0, w(0) = 1, w'(0) = 0,
+    td = t sqrt(g/Le) (Butler 1998; Butler, Garnett and Healey 2003), underdamped (C_D < 2)."""
+    td = np.asarray(t, float) * np.sqrt(G / le)
+    w = np.sqrt(1.0 - c_d * c_d / 4.0)
+    return np.exp(-c_d * td / 2.0) * (np.cos(w * td) + c_d / (2.0 * w) * np.sin(w * td))
+
+
+def _more_slug_tests(zones, wxy, slug_rows, slug_geom, known, screened):
+    """A double-straight-line record, an oscillating response, a confined packer interval and a tight unit.
+
+    Each comes from its model's own equation with a known K (listed in README.md).
+    """
+    rng = np.random.default_rng(SLUG_SEED)
+    zone_of = {(z[0], z[1]): z for z in zones}
+
+    def rows(wid, zid, tid, t, h):
+        for tt, hh in zip(t, h):
+            slug_rows.append([wid, zid, tid, f"{tt:.3f}", f"{hh:.5f}"])
+
+    # 1. Double straight line (unconfined ULS screen, Bouwer and Rice geometry): 35 % of H0 drains from the
+    #    filter pack with a tenth of the formation's time constant, then the formation's recovery.
+    wid, zid, top_d, bot_d, *_ = screened[5]
+    x, y = wxy[wid]
+    g = float(ground(x, y))
+    static = round(g - float(heads(x, y)["ULS"]), 2)
+    thickness = round(float(heads(x, y)["ULS"]) - float(tops(x, y)["SHL"]), 2)
+    rc_, rw_, le = 0.0254, 0.0762, round(bot_d - top_d, 2)
+    lw = bot_d - static
+    k_ms = 4.0e-5
+    ln_re = bouwer_rice_ln_re_rw(rw_, le, lw, thickness)
+    tau = rc_ * rc_ * ln_re / (2 * le * k_ms)
+    for n, h0 in enumerate((0.6, -0.4), start=1):
+        t = np.linspace(0, 3.5 * tau, 100)
+        h = h0 * (0.35 * np.exp(-10 * t / tau) + 0.65 * np.exp(-t / tau)) + 0.002 * rng.normal(size=t.size)
+        rows(wid, zid, f"DL{n}", t, h)
+        slug_geom.append([wid, zid, f"DL{n}", rc_, rw_, le, thickness, static, f"2022-06-0{n + 1}", top_d, "false",
+                          "screen"])
+        known.append((f"DL{n}", f"{wid}/{zid}", "double straight line", "Bouwer and Rice (1976)", k_ms))
+
+    # 2. Oscillating response in the karst limestone (ULS): Hvorslev-based high-K model with the laminar friction
+    #    of the water column, (Le/g) w'' + (T0 + Tf) w' + w = 0, T0 = rc^2 ln(b/rw) / (2 K b),
+    #    Tf = 8 nu Lc / (g rc^2), Lc = Le - (b/2)(rc/rw)^2 (Butler 1998; Butler, Garnett and Healey 2003).
+    wid, zid, top_d, bot_d, *_ = screened[6]
+    rc_, rw_, b = 0.0508, 0.0508, round(bot_d - top_d, 2)
+    k_ms, le_col = 3.0e-3, 12.0
+    friction = 8 * WATER_VISCOSITY * (le_col - 0.5 * b * (rc_ / rw_) ** 2) / (G * rc_ * rc_)
+    c_d = (rc_ * rc_ * np.log(b / rw_) / (2 * k_ms * b) + friction) * np.sqrt(G / le_col)
+    for n, h0 in enumerate((0.8, -0.4), start=1):
+        t = np.arange(0.0, 40.0 + 1e-9, 0.2)
+        h = h0 * oscillator_head(t, c_d=c_d, le=le_col) + 0.002 * rng.normal(size=t.size)
+        rows(wid, zid, f"OS{n}", t, h)
+        slug_geom.append([wid, zid, f"OS{n}", rc_, rw_, b, "", "", f"2022-06-1{n}", top_d, "false", "screen"])
+        known.append((f"OS{n}", f"{wid}/{zid}", "oscillating", "damped oscillator, Hvorslev-based", k_ms))
+
+    # 3. Confined packer interval with storage (LCL port below the parting shale): Cooper, Bredehoeft and
+    #    Papadopulos (1967), alpha = rw^2 S / rc^2 with S = 7e-4 (specific storage about 1.2e-4 per m).
+    wid, zid = next((z[0], z[1]) for z in zones if z[6] == "LCL" and z[4] == "port")
+    top_d, bot_d = zone_of[(wid, zid)][2], zone_of[(wid, zid)][3]
+    rc_, rw_, b = 0.0127, 0.048, round(bot_d - top_d, 2)
+    k_ms, storativity = 2.0e-6, 7.0e-4
+    alpha = rw_ * rw_ * storativity / (rc_ * rc_)
+    trans = k_ms * b
+    beta = np.geomspace(1e-3, 30.0, 120)
+    t = np.concatenate([[0.0], beta * rc_ * rc_ / trans])
+    h = np.concatenate([[1.0], [cbp_head(alpha, bb) for bb in beta]])
+    for n, h0 in enumerate((1.5, -1.0), start=1):
+        rows(wid, zid, f"PK{n}", t, h0 * h + 0.002 * rng.normal(size=t.size))
+        slug_geom.append([wid, zid, f"PK{n}", rc_, rw_, b, b, "", f"2022-07-0{n + 4}", top_d, "true", "packer"])
+        known.append((f"PK{n}", f"{wid}/{zid}", "confined, with storage", "Cooper, Bredehoeft and Papadopulos "
+                      f"(1967), S = {storativity:g}", k_ms))
+
+    # 4. Tight sandstone (CAP screen): an overdamped recovery that takes hours.
+    wid, zid, top_d, bot_d, *_ = next(z for z in zones if z[6] == "CAP" and z[4] == "screen")
+    rc_, rw_, b = 0.0254, 0.0508, round(bot_d - top_d, 2)
+    k_ms = 1.5e-7
+    t0 = rc_ * rc_ * np.log(b / rw_) / (2 * b * k_ms)
+    t = np.linspace(0, 4 * t0, 60)
+    rows(wid, zid, "TS1", t, 0.5 * np.exp(-t / t0) * (1 + 0.01 * rng.normal(size=t.size)))
+    slug_geom.append([wid, zid, "TS1", rc_, rw_, b, "", "", "2022-07-12", "", "", ""])
+    known.append(("TS1", f"{wid}/{zid}", "overdamped, tight unit", "Hvorslev (1951)", k_ms))
 
 
 def _write(path: Path, header, rows):
@@ -278,4 +405,7 @@ def _write_areas(path: Path):
 if __name__ == "__main__":
     target = Path(sys.argv[1]) if len(sys.argv) > 1 else Path(__file__).resolve().parent
     counts = build(target)
+    known = counts.pop("known slug K")
     print(", ".join(f"{k}: {v}" for k, v in counts.items()))
+    for test, where, response, model, k in known:
+        print(f"| {where} | {test} | {response} | {model} | {k:.4g} |")

@@ -937,21 +937,40 @@ def figures(store, k_unit, surfaces, out, include_poor, include_pumping_wells, e
 @click.option("--rotation", type=ANGLE, default=0.0, show_default=True,
               help="Degrees counter-clockwise about the origin.")
 @click.option("--layers", default=None, help="Unit codes, top first, comma separated (default: all picked units).")
-@click.option("--kv-ratio", type=POSITIVE, default=10.0, show_default=True, help="K_h / K_v of aquifer layers.")
+@click.option("--kv-ratio", type=POSITIVE, default=10.0, show_default=True,
+              help="K_h / K_v of a unit without vertical K tests (ktests column orientation).")
 @click.option("--k-source", type=click.Choice(["mean", "surface"]), default="mean", show_default=True)
 @click.option("--min-thickness", type=Quantity("length", POSITIVE), default=1.0, show_default=True,
-              help="Smallest layer thickness (store length unit, or a length with its unit, e.g. 0.5m).")
+              help="Smallest layer thickness (store length unit, or a length with its unit, e.g. 0.5m); a thinner "
+                   "cell, or one where the unit is absent, is a vertical pass-through cell (idomain -1) and no "
+                   "other layer moves.")
+@click.option("--merge-down", is_flag=True,
+              help="A unit left out of --layers between two chosen ones joins the layer below (default: above).")
+@click.option("--base", type=Quantity("length", FINITE, metavar="ELEV[UNIT]"), default=None,
+              help="Elevation of the bottom of the lowest layer (store length unit), for a unit no well goes "
+                   "through.")
+@click.option("--base-thickness", type=Quantity("length", POSITIVE), default=None,
+              help="Thickness of the lowest layer below its top (store length unit), instead of --base. Without "
+                   "either, a lowest unit no well goes through gets its mean penetrated thickness, with a warning.")
+@click.option("--mf6", type=click.Path(file_okay=False), default=None,
+              help="Also write a MODFLOW 6 simulation into this folder (needs flopy): DIS, NPF, IC, WEL for the "
+                   "wells pumping now, DRN for the springs, OC, and an IMS file without settings.")
+@click.option("--spring-conductance", type=Quantity("transmissivity", POSITIVE, metavar="C[UNIT]"), default=None,
+              help="Drain conductance of each spring cell in the --mf6 simulation, length squared per day (store "
+                   "units, e.g. 1000 or 500m2/d); needed when a spring lies in the grid, no default.")
 @surfaces_option
 @click.option("--max-cells", type=COUNT, default=None, help="Refuse grids larger than this (default 20,000,000).")
 @click.option("--out", default="model.nc", show_default=True, type=click.Path(dir_okay=False))
 @selection_options
-def grid(store, cell, origin, shape, rotation, layers, kv_ratio, k_source, min_thickness, surfaces, max_cells, out,
-         include_poor, include_pumping_wells, exclude_wells):
+def grid(store, cell, origin, shape, rotation, layers, kv_ratio, k_source, min_thickness, merge_down, base,
+         base_thickness, mf6, spring_conductance, surfaces, max_cells, out, include_poor, include_pumping_wells,
+         exclude_wells):
     """Model-ready grid: one layer per unit with top, bottom, K_h, K_v and starting heads.
 
     Writes FILE.nc (NetCDF, CF-1.8), a folder FILE_arrays/ with one .npy and one
     text file per layer and variable, and manifest.json beside it. K is in the
-    store's length unit per day.
+    store's length unit per day. With --mf6 DIR, also a MODFLOW 6 simulation
+    (steady state; springs as drains with --spring-conductance).
 
     Caution: results are screening-level estimates for planning and model set-up,
     not a substitute for site-specific investigation or for the judgement of a
@@ -960,39 +979,93 @@ def grid(store, cell, origin, shape, rotation, layers, kv_ratio, k_source, min_t
     Example: hydroatlas grid district.gpkg --cell 250 --layers CAP,ULS,SHL,LCL --out model/district.nc
     """
     with open_store(store) as s:
-        min_thickness = _in_units(min_thickness, "length", s.settings.length_unit,
-                                  default_unit=s.settings.length_unit)
+        L = s.settings.length_unit
+        min_thickness, base, base_thickness = (_in_units(v, "length", L, default_unit=L)
+                                               for v in (min_thickness, base, base_thickness))
+        su = _store_units(s)
+        spring_conductance = _in_units(spring_conductance, "transmissivity", su.transmissivity,
+                                       default_unit=su.transmissivity)
         res = workflows.model_grid(s, cell=cell, out=out, origin=origin, shape=shape, rotation=rotation,
                                    layers=[c.strip() for c in layers.split(",")] if layers else None,
                                    kv_ratio=kv_ratio, k_source=k_source, min_thickness=min_thickness,
+                                   merge_down=merge_down, base=base, base_thickness=base_thickness, mf6=mf6,
+                                   spring_conductance=spring_conductance,
                                    surfaces=surfaces, max_cells=max_cells,
                                    policy=_policy(include_poor, include_pumping_wells, exclude_wells))
     _say_selection(res.get("selection"))
+    for note in res.get("notes", []):
+        if note.startswith("warning: "):
+            click.echo(note, err=True)
     nl, nr, nc = res["shape"]
     click.echo(f"model grid: {nl} layers ({', '.join(res['layers'])}) x {nr} rows x {nc} columns")
     for kind, path in res["files"].items():
         click.echo(f"  {kind}: {path}")
+    m6 = res.get("mf6")
+    if m6:
+        cond = ("" if m6["spring_conductance"] is None else
+                f", conductance {m6['spring_conductance']:g} {m6['spring_conductance_unit']}")
+        click.echo(f"MODFLOW 6 simulation {m6['name']}: {len(m6['wells'])} pumped zone(s) in WEL (rates in "
+                   f"{m6['rate_unit']}), {len(m6['springs'])} spring(s) in DRN{cond}; IMS without settings "
+                   "(MODFLOW 6 defaults); not run by hydroatlas")
+        for w in m6["wells_left_out"]:
+            click.echo(f"left out of WEL: well {w['well_id']} zone {w['zone_id']}: {w['reason']}", err=True)
+        for sp in m6["springs_left_out"]:
+            click.echo(f"left out of DRN: spring {sp['spring_id']}: {sp['reason']}", err=True)
 
 
 @main.command()
 @click.argument("store")
-@click.option("--method", type=click.Choice(workflows.SLUG_METHODS), default="hvorslev", show_default=True)
+@click.option("--method", type=click.Choice(workflows.SLUG_METHODS), default="auto", show_default=True,
+              help="auto: the method the response and geometry call for, with the reason shown.")
 @click.option("--no-write", is_flag=True, help="Only report; do not store the K values as K tests.")
+@click.option("--figures", "figures_dir", default=None, type=click.Path(file_okay=False),
+              help="Folder for one figure per test (normalised head against time, repeats overlaid).")
 @click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
-def slugs(store, method, no_write, fmt):
-    """Reduce slug-test records to K (Hvorslev 1951 or Bouwer and Rice 1976) and store them as K tests.
+def slugs(store, method, no_write, figures_dir, fmt):
+    """Reduce slug-test records to K and store one K test per physical test.
 
-    Fits ln(H/H0) over H/H0 0.15-0.25 (Hvorslev) or 0.20-0.30 (Bouwer and Rice); repeat
-    tests of a zone that differ by more than 25 % are flagged. Import the records
-    (kind slugtests) and the well geometry (kind sluggeometry) first. K is reported
-    and stored in the store's K unit (ft/d in a feet store, m/d in a metre store).
+    Methods: Hvorslev (1951) and Bouwer and Rice (1976), fitted as the slope of
+    ln(H/H0) over H/H0 0.15-0.25 and 0.20-0.30; Cooper, Bredehoeft and Papadopulos
+    (1967) for confined intervals with storage; a damped-oscillator model for
+    oscillating responses in very permeable units. Each record is diagnosed first
+    (response type, points in the fit window, r2, residual pattern, normalised-head
+    range fitted, shape-factor validity, agreement of the zone's repeats); with
+    --method auto the method is chosen from the response and the geometry and the
+    reason is shown. Every applicable method's result is kept in the K test's
+    attributes; the K test is 'slug:<test_id>' and a re-run updates it (see
+    'history'). K is in the store's K unit (ft/d in a feet store, m/d in a metre
+    store). Import the records (kind slugtests or transducer) and the geometry
+    (kind sluggeometry) first.
+
+    Example: hydroatlas slugs district.gpkg --method auto --figures figures/slugs
     """
     with open_store(store) as s:
-        out = workflows.reduce_slug_tests(s, method=method, write=not no_write)
-    # K in the store's K unit (named in k_unit); csv and json also carry k_ms (m/s)
-    cols = [c for c in ("well_id", "zone_id", "test_id", "method", "k", "k_unit", "r2", "repeat_disagree",
-                        "problem") + (("k_ms",) if fmt != "table" else ()) if c in out]
-    _emit(out[cols], fmt)
+        out = workflows.reduce_slug_tests(s, method=method, write=not no_write, figures=figures_dir)
+    # K in the store's K unit (named in k_unit); csv and json also carry k_ms (m/s) and, json, the alternatives
+    cols = ["well_id", "zone_id", "test_id", "method", "k", "k_unit", "response", "n_points", "r2",
+            "residual_pattern", "h_range", "shape_valid", "repeat_disagree", "quality", "reason", "problem"]
+    if fmt != "table":
+        cols += ["k_ms", "valid", "unit"]
+    if fmt == "json":
+        cols += ["alternatives"]
+    shown = out[[c for c in cols if c in out]]
+    if fmt == "table":
+        shown = shown.assign(alternatives=[", ".join(f"{a['method']} " + ("refused" if a["k"] is None else
+                                                                          f"{a['k']:.3g}") for a in alts) or "-"
+                                           for alts in out["alternatives"]])
+    if fmt != "table":
+        _emit(shown, fmt)
+        return
+    # the table holds the figures; the reasons and problems (sentences) follow it, one line per test
+    _emit(shown.drop(columns=["reason", "problem"], errors="ignore"), fmt)
+    for r in out.itertuples():
+        ident = f"{r.well_id}/{r.zone_id}/{r.test_id}"
+        if isinstance(r.reason, str):
+            click.echo(f"{ident}: {r.method}: {r.reason}")
+        if isinstance(r.problem, str):
+            click.echo(f"{ident}: problem: {r.problem}")
+    if figures_dir is not None:
+        click.echo(f"{len(out.attrs.get('figures', []))} figure files in {figures_dir}")
 
 
 @main.command()

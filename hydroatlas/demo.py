@@ -12,6 +12,7 @@ import pandas as pd
 from . import workflows
 
 DEMO_POROSITY = 0.02  # effective porosity of the karst limestone (invented, plausible for fractured carbonate)
+DEMO_SPRING_CONDUCTANCE = 1000.0  # m2/d, drain conductance of a spring cell in the MODFLOW 6 simulation (invented)
 IMPORT_ORDER = ("units", "wells", "picks", "zones", "ktests", "heads", "pumping", "springs", "discharge", "areas",
                 "slugtests", "sluggeometry")
 _FILES = {kind: f"{kind}.csv" for kind in IMPORT_ORDER}
@@ -50,10 +51,13 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
         for kind in IMPORT_ORDER:
             report = workflows.import_data(store, kind, region / _FILES[kind])
             echo(report.summary())
-        slugs = workflows.reduce_slug_tests(store, method="hvorslev")
-        echo(f"slug tests: {int(slugs['k_ms'].notna().sum())} reduced by Hvorslev and stored as K tests "
-             f"({int(slugs['repeat_disagree'].sum())} flagged for disagreeing repeats)")
-        slugs.to_csv(out / "slug_tests.csv", index=False)
+        # method chosen per test from its response and geometry; make_figures below draws one figure per test
+        slugs = workflows.reduce_slug_tests(store, method="auto")
+        echo(f"slug tests: {int(slugs['k_ms'].notna().sum())} of {len(slugs)} reduced (method chosen per test: "
+             + ", ".join(f"{m} {n}" for m, n in slugs["method"].value_counts().items())
+             + f") and stored as one K test each ({int(slugs['repeat_disagree'].sum())} flagged for disagreeing "
+             "repeats)")
+        slugs.drop(columns=["alternatives"]).to_csv(out / "slug_tests.csv", index=False)
         stats_rows = workflows.unit_stats(store, k_unit="m/d")
         (out / "unit_stats.json").write_text(json.dumps(stats_rows, indent=2, default=float))
         table = pd.DataFrame(stats_rows)[["unit", "role", "n_tests", "n_zones", "n_wells", "k_geomean",
@@ -85,8 +89,10 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
         map_path = workflows.build_map(store, unit="ULS", out=out / "map.html", surfaces=surfaces)
         layer_files = workflows.export_layers(store, out=out, surfaces=surfaces)
         figure_files = workflows.make_figures(store, out=out / "figures", surfaces=surfaces)
+        # the spring drains' conductance is invented for the demo (m2/d); a modeller sets it from the spring
         model = workflows.model_grid(store, cell=250.0, out=out / "model" / "zephyrine_model.nc",
-                                     layers=["CAP", "ULS", "SHL", "LCL"], surfaces=surfaces)
+                                     layers=["CAP", "ULS", "SHL", "LCL"], surfaces=surfaces,
+                                     mf6=out / "model" / "mf6", spring_conductance=DEMO_SPRING_CONDUCTANCE)
     finally:
         store.close()
     echo("\nUnit statistics (K in m/d, every test counts once):")
@@ -110,5 +116,9 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
     nl, nr, nc = model["shape"]
     echo(f"Model grid: {nl} layers x {nr} rows x {nc} columns -> {model['files']['netcdf']} "
          f"(arrays and manifest beside it)")
+    m6 = model["mf6"]
+    echo(f"MODFLOW 6 simulation (steady state, not run here): {m6['folder']} - {len(m6['wells'])} pumped zones "
+         f"in WEL, {len(m6['springs'])} springs in DRN (conductance {m6['spring_conductance']:g} "
+         f"{m6['spring_conductance_unit']}, invented for the demo)")
     echo(f"store: {store_path}")
     return {"store": str(store_path), "stats": stats_rows, "findings": findings}

@@ -282,12 +282,13 @@ def test_model_grid_pinches_the_unit_outside_its_extent(partial_store, tmp_path,
               "--out", out / "model.nc")
     assert res.exit_code == 0, res.output
     ds = xr.open_dataset(out / "model.nc")
-    pinched = ds["pinched"].values
-    west = ds["x"].values < MID  # x is the column coordinate of an unrotated grid
-    assert ds["x"].dims == ("x",) and pinched.shape == (3, 12, 16)
-    assert pinched[0][:, west].all() and not pinched[0][:, ~west].any()
-    assert not pinched[1].any() and not pinched[2].any()
-    assert np.allclose(ds["thickness"].values[0][:, west], 1.0)
+    idomain = ds["idomain"].values
+    west = ds["x"].values < MID
+    assert idomain.shape == (3, 12, 16)
+    assert (idomain[0][:, west] == -1).all() and (idomain[0][:, ~west] == 1).all()
+    assert (idomain[1] == 1).all() and (idomain[2] == 1).all()
+    thick0 = ds["top"].values - ds["botm"].values[0]
+    assert np.allclose(thick0[:, west], 0.0)
     manifest = json.loads((out / "manifest.json").read_text())
     assert manifest["grid"]["cells_outside_unit_extent"]["PER"] == int(west.sum()) * 12
     ds.close()

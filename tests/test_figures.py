@@ -21,6 +21,8 @@ import matplotlib.pyplot as plt  # noqa: E402
 
 from hydroatlas.errors import ParameterError  # noqa: E402
 from hydroatlas.export import figures  # noqa: E402
+
+from conftest import cli  # noqa: E402
 from hydroatlas.interp.variogram import gamma_values  # noqa: E402
 
 
@@ -340,3 +342,10 @@ def test_a_failed_save_leaves_no_partial_file_and_keeps_the_old_one(tmp_path, mo
     monkeypatch.setattr(plt.Figure, "savefig", real)
     assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == before  # no temporary file, old files kept
     assert plt.get_fignums() == []
+
+
+def test_figures_with_a_unit_of_one_test(mini_store, tmp_path, runner):
+    """A unit with a single K test has no confidence interval (NaN bounds); the figures still draw."""
+    res = cli(runner, "figures", mini_store, "--out", tmp_path / "figs")
+    assert res.exit_code == 0, res.output
+    assert (tmp_path / "figs" / "logk_by_unit.png").stat().st_size > 0

@@ -40,7 +40,8 @@ def test_bouwer_rice_log_cap_and_full_penetration():
     deeper = bouwer_rice_ln_re_rw(well_radius=0.05, screen_length=3.0, lw=6.0, aquifer_thickness=1e7)
     assert deep == deeper
     full = bouwer_rice_ln_re_rw(well_radius=0.05, screen_length=3.0, lw=6.0, aquifer_thickness=6.0)
-    assert 0 < full < deep + 5
+    # a unit continuing below the screen speeds recovery: smaller ln(Re/rw) than full penetration
+    assert 0 < deep < full
 
 
 def test_bouwer_rice_recovers_k():
@@ -75,39 +76,3 @@ def test_repeat_tests_compared():
     flagged = compare_repeats([1.0e-5, 1.5e-5, 1.2e-5])
     assert flagged["disagree"] is True and flagged["spread"] == pytest.approx(0.5)
     assert flagged["geomean"] == pytest.approx((1.0e-5 * 1.5e-5 * 1.2e-5) ** (1 / 3))
-
-
-def test_import_and_reduce_slug_tests(mini_store, tmp_path, runner):
-    """End to end: records and geometry imported, reduced by Hvorslev, stored as K tests with the fit."""
-    import json
-
-    from hydroatlas import open_store
-
-    from conftest import cli, write_csv
-
-    rc, L, R = 0.0254, 1.524, 0.0508
-    rows = [["well_id", "zone_id", "test_id", "t_s", "displacement"]]
-    for test_id, k_true, h0 in (("T1", 3e-6, 0.6), ("T2", 3.2e-6, -0.4)):  # slug in, slug out
-        t0 = rc * rc * math.log(L / R) / (2 * L * k_true)
-        for t in np.linspace(0, 4 * t0, 60):
-            rows.append(["W1", "P1", test_id, f"{t:.6f}", f"{h0 * math.exp(-t / t0):.9f}"])
-    geom = [["well_id", "zone_id", "test_id", "casing_radius", "well_radius", "screen_length", "tested_on"],
-            ["W1", "P1", "T1", rc, R, L, "2024-06-02"], ["W1", "P1", "T2", rc, R, L, ""]]
-    assert cli(runner, "import", mini_store, "slugtests", write_csv(tmp_path / "slug.csv", rows)).exit_code == 0
-    assert cli(runner, "import", mini_store, "sluggeometry", write_csv(tmp_path / "geo.csv", geom)).exit_code == 0
-    res = cli(runner, "slugs", mini_store, "--format", "json")
-    assert res.exit_code == 0, res.output
-    out = {r["test_id"]: r for r in json.loads(res.output)}
-    assert out["T1"]["k_ms"] == pytest.approx(3e-6, rel=1e-5) and out["T2"]["k_ms"] == pytest.approx(3.2e-6, rel=1e-5)
-    assert out["T1"]["repeat_disagree"] is False
-    with open_store(mini_store) as s:
-        kt = s.read("ktests").set_index("test_id")
-    stored = kt.loc["slug:T1:hvorslev"]
-    assert stored["k_ms"] == pytest.approx(3e-6, rel=1e-5) and stored["tested_on"] == "2024-06-02"
-    assert json.loads(stored["attrs"])["fit"]["window"] == [0.15, 0.25]
-    assert json.loads(kt.loc["slug:T2:hvorslev", "attrs"])["tested_on_unknown"] is True
-    res = cli(runner, "slugs", mini_store, "--method", "bouwer-rice", "--no-write", "--format", "json")
-    assert "static_depth" in res.output  # no static depth given: a clear reason, no K
-    bad = write_csv(tmp_path / "bad.csv", [rows[0], ["W1", "P9", "T1", "0", "1.0"]])
-    res = cli(runner, "import", mini_store, "slugtests", bad)
-    assert res.exit_code == 2 and "zone_id" in res.output

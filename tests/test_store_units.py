@@ -239,7 +239,7 @@ def test_slug_k_reported_and_stored_in_the_store_k_unit(feet_store, tmp_path, ru
     table = cli(runner, "slugs", feet_store, "--no-write")
     assert "ft/d" in table.output and "k_ms" not in table.output
     with open_store(feet_store) as s:
-        kt = s.read("ktests").set_index("test_id").loc["slug:T1:hvorslev"]
+        kt = s.read("ktests").set_index("test_id").loc["slug:T1"]
     assert kt["k_unit"] == "ft/d" and kt["k"] == pytest.approx(k_true_ftd, rel=1e-4)
 
 
@@ -355,8 +355,8 @@ def test_logk_surface_read_back_in_its_unit_by_paths_and_grid(feet_store, tmp_pa
               "--surfaces", surf, "--min-thickness", "0.5m", "--out", nc)
     assert res.exit_code == 0, res.output
     with xr.open_dataset(nc) as ds:
-        assert ds["kh"].attrs["units"] == "ft/d"
-        assert np.allclose(ds["kh"].values[0], K_FTD, rtol=1e-6)  # the surface is float32
+        assert ds["k"].attrs["units"] == "ft day-1"
+        assert np.allclose(ds["k"].values[0], K_FTD, rtol=1e-6)  # the surface is float32
         manifest = json.loads((tmp_path / "manifest.json").read_text())
     assert manifest["grid"]["min_thickness"] == pytest.approx(0.5 / FT_M, rel=1e-12)  # 0.5 m in feet
 

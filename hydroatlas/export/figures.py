@@ -232,7 +232,8 @@ def logk_distribution(stem, values, stats, *, k_unit="m/d") -> list[Path]:
         raise ParameterError("logk_distribution: no units to draw; values and stats are both empty")
     for s in stats:
         bounds = [s.get("k_geomean")] + list(s.get("k_geomean_ci95") or [])
-        if any(b is not None and not b > 0 for b in bounds):
+        # a unit with one test has no interval (NaN bounds): nothing to draw, not an error
+        if any(b is not None and math.isfinite(b) and not b > 0 for b in bounds):
             raise ParameterError(f"logk_distribution: unit {s['unit']!r} has a non-positive geometric mean or "
                                  f"CI bound; K must be > 0 to take log10")
 
@@ -253,11 +254,11 @@ def logk_distribution(stem, values, stats, *, k_unit="m/d") -> list[Path]:
         for i, unit in enumerate(order):
             s = by_unit.get(unit, {})
             ci = s.get("k_geomean_ci95")
-            if ci is not None and all(c is not None for c in ci):
+            if ci is not None and all(c is not None and math.isfinite(c) for c in ci):
                 ax.plot([x[i] + 0.34] * 2, np.log10(ci), color=VERMILLION, linewidth=2.5, solid_capstyle="butt",
                         zorder=4, label=ci_label)
                 ci_label = None
-            if s.get("k_geomean") is not None:
+            if s.get("k_geomean") is not None and math.isfinite(s["k_geomean"]):
                 ax.plot(x[i] + 0.34, math.log10(s["k_geomean"]), marker="D", markersize=7, color=VERMILLION,
                         markeredgecolor=BLACK, linestyle="none", zorder=5, label=gm_label)
                 gm_label = None
@@ -443,3 +444,93 @@ def cross_validation(stem, observed, estimated, *, std=None, label="", unit="") 
         ax.grid(True, color="#EEEEEE", linewidth=0.6, zorder=0)
 
     return _render(stem, draw, figsize=(5.5, 5.5))
+
+
+#: time axis of each slug-test method: log-linear (log H/H0) for the exponential recoveries, log time for the
+#: type-curve method, linear for oscillating responses
+SLUG_AXES = {"hvorslev": "log-head", "bouwer-rice": "log-head", "cbp": "log-time", "oscillating": "linear"}
+
+
+def slug_test(stem, repeats, *, method=None, fitted=None, t_window=None, title="", subtitle="",
+              disagree=False) -> list[Path]:
+    """Normalised head H/H0 against time for one slug test, with the zone's repeats overlaid.
+
+    Log-linear (log H/H0 against t) for Hvorslev and Bouwer-Rice, H/H0 against log t for Cooper, Bredehoeft
+    and Papadopulos, linear for oscillating responses (and when no method applies).
+
+    Parameters
+    ----------
+    stem : path-like
+        Output path without suffix.
+    repeats : list of dict
+        One per record of the zone: ``t`` (s), ``h`` (H/H0), ``label``, and ``current`` (True for the test
+        the figure is about; the others are drawn lighter).
+    method : str, optional
+        Method key of the fit ('hvorslev', 'bouwer-rice', 'cbp', 'oscillating'), None when there is no K.
+    fitted : (t, h) arrays, optional
+        The fitted line or curve in H/H0.
+    t_window : (t_from, t_to), optional
+        Time span of the fit window, shaded.
+    title, subtitle : str
+        Title lines; the subtitle carries K with its unit and method.
+    disagree : bool
+        The repeats of the zone disagree beyond the tolerance; said on the figure.
+
+    Returns
+    -------
+    list of Path
+        The PNG and SVG written.
+    """
+    if not repeats:
+        raise ParameterError("slug_test: no record to draw")
+    axes = SLUG_AXES.get(method, "linear")
+    series = []
+    for r in repeats:
+        t, h = _as_float_array(r["t"], "t"), _as_float_array(r["h"], "h")
+        if len(t) != len(h):
+            raise ParameterError(f"slug_test: t and h of {r.get('label')} differ in length")
+        keep = np.isfinite(t) & np.isfinite(h)
+        if axes == "log-head":
+            keep &= h > 0
+        if axes == "log-time":
+            keep &= t > 0
+        series.append((t[keep], h[keep], str(r.get("label", "")), bool(r.get("current"))))
+    palette = [BLUE, ORANGE, GREEN, PURPLE, SKY, YELLOW]
+
+    def draw(fig, ax):
+        others = 0
+        for t, h, label, current in series:
+            if current:
+                ax.plot(t, h, "o", markersize=3.2, color=BLACK, label=f"{label}, this test", zorder=3)
+            else:
+                ax.plot(t, h, "o", markersize=2.4, alpha=0.55, color=palette[others % len(palette)],
+                        label=f"{label}, repeat", zorder=2)
+                others += 1
+        if t_window is not None and len(t_window) == 2 and all(np.isfinite(np.asarray(t_window, float))):
+            ax.axvspan(float(t_window[0]), float(t_window[1]), color=YELLOW, alpha=0.35, zorder=1,
+                       label="fit window")
+        if fitted is not None:
+            tf, hf = _as_float_array(fitted[0], "t_fit"), _as_float_array(fitted[1], "h_fit")
+            ok = np.isfinite(tf) & np.isfinite(hf) & ((hf > 0) if axes == "log-head" else True)
+            ax.plot(tf[ok], hf[ok], "-", color=VERMILLION, linewidth=1.6, zorder=4, label="fitted")
+        plain = matplotlib.ticker.FuncFormatter(lambda v, _: f"{v:g}")  # no mathtext: parse_math is off
+        if axes == "log-head":
+            ax.set_yscale("log")
+            ax.yaxis.set_major_formatter(plain)
+            ax.yaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
+        elif axes == "log-time":
+            ax.set_xscale("log")
+            ax.xaxis.set_major_formatter(plain)
+            ax.xaxis.set_minor_formatter(matplotlib.ticker.NullFormatter())
+        else:
+            ax.axhline(0.0, color="#999999", linewidth=0.7, zorder=0)
+        ax.set_xlabel("Time since the start of the test (s)" + (", log scale" if axes == "log-time" else ""))
+        ax.set_ylabel("Normalised head H/H0 (-)" + (", log scale" if axes == "log-head" else ""))
+        head = title + (f"\n{subtitle}" if subtitle else "")
+        if disagree:
+            head += "\nrepeats of this zone disagree beyond the tolerance"
+        ax.set_title(head, fontsize=9)
+        ax.legend(loc="best", fontsize=7, framealpha=0.9)
+        ax.grid(True, which="both", color="#EEEEEE", linewidth=0.6, zorder=0)
+
+    return _render(stem, draw, figsize=(6.5, 4.8))

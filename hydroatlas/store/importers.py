@@ -28,9 +28,9 @@ from .base import Store
 from .tables import Cells, read_csv_table
 
 KINDS = ("units", "wells", "picks", "zones", "ktests", "heads", "pumping", "springs", "discharge", "areas",
-         "slugtests", "sluggeometry")
+         "slugtests", "sluggeometry", "transducer")
 #: the store table of each kind (the same name unless listed)
-TABLE_OF = {"slugtests": "slug_records", "sluggeometry": "slug_geometry"}
+TABLE_OF = {"slugtests": "slug_records", "sluggeometry": "slug_geometry", "transducer": "slug_records"}
 
 REQUIRED = {
     "units": ("code", "name", "rank", "role"),
@@ -45,13 +45,14 @@ REQUIRED = {
     "areas": ("area_id", "kind"),
     "slugtests": ("well_id", "zone_id", "test_id", "t_s", "displacement"),
     "sluggeometry": ("well_id", "zone_id", "test_id", "casing_radius", "well_radius", "screen_length"),
+    "transducer": ("well_id", "zone_id", "test_id", "timestamp", "value", "value_unit"),
 }
 OPTIONAL = {
     "units": ("parent",),
     "wells": ("x", "y", "lon", "lat", "longitude", "latitude", "total_depth", "kind", "name"),
     "picks": (),
     "zones": ("kind", "unit"),
-    "ktests": ("quality", "source", "test_id"),
+    "ktests": ("quality", "source", "test_id", "orientation"),
     "heads": ("head", "depth_to_water", "ref_elev", "quality"),
     "pumping": ("zone_id", "end"),
     "springs": ("x", "y", "lon", "lat", "longitude", "latitude", "name", "unit"),
@@ -59,6 +60,7 @@ OPTIONAL = {
     "areas": ("unit",),
     "slugtests": (),
     "sluggeometry": ("aquifer_thickness", "static_depth", "tested_on"),
+    "transducer": ("test_start",),
 }
 # Head given together with ref_elev - depth_to_water must agree to this, in the store's length unit.
 HEAD_CONSISTENCY_TOL = 0.01
@@ -438,6 +440,8 @@ def _prepare_ktests(store, path, label, crs_in):
     k_unit = _unit_labels(cells, "k_unit", K_UNITS, "hydraulic conductivity")
     quality = cells.choice("quality", schema.QUALITIES, required=False)
     source = cells.text("source", required=False)
+    # K along the layers (default, also for an empty cell) or across them (a test of vertical K)
+    orientation = cells.choice("orientation", schema.KTEST_ORIENTATIONS, required=False, default="horizontal")
     if cells.has("test_id"):
         test_id = cells.text("test_id")
     else:
@@ -451,7 +455,8 @@ def _prepare_ktests(store, path, label, crs_in):
     factors = k_unit.map(K_UNITS).to_numpy(dtype=float)
     frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "test_id": test_id, "tested_on": tested_on,
                           "method": method, "k": k, "k_unit": k_unit, "k_ms": k * factors,
-                          "quality": quality, "source": source, "attrs": _attrs(cells, "ktests"),
+                          "quality": quality, "source": source, "orientation": orientation,
+                          "attrs": _attrs(cells, "ktests"),
                           "source_row": cells.rows})
     return frame, None
 
@@ -644,6 +649,29 @@ def _prepare_slugtests(store, path, label, crs_in):
     return frame, None
 
 
+#: optional sluggeometry columns kept (checked and typed) in the row's attrs: the slug_geometry table has no
+#: column for them
+SLUG_GEOMETRY_EXTRA = ("screen_top_depth", "confined", "geometry_kind")
+SLUG_GEOMETRY_KINDS = ("screen", "packer", "open_hole")
+#: tolerance (store length unit) when checking that a screen lies inside its zone
+SCREEN_IN_ZONE_TOL = 0.01
+
+
+def _merge_attrs(base: pd.Series, typed: dict[str, list]) -> pd.Series:
+    """``base`` attrs (JSON text or None) with the typed values of ``typed`` (None: left out) written over them."""
+    import json
+
+    out = []
+    for i, text in enumerate(base):
+        obj = json.loads(text) if isinstance(text, str) else {}
+        for name, values in typed.items():
+            obj.pop(name, None)
+            if values[i] is not None:
+                obj[name] = values[i]
+        out.append(json.dumps(obj, ensure_ascii=False) if obj else None)
+    return pd.Series(out, index=base.index, dtype=object)
+
+
 def _prepare_sluggeometry(store, path, label, crs_in):
     cells = _read(path, label, "sluggeometry")
     well_id, zone_id, test_id = cells.text("well_id"), cells.text("zone_id"), cells.text("test_id")
@@ -653,13 +681,136 @@ def _prepare_sluggeometry(store, path, label, crs_in):
     b = cells.number("aquifer_thickness", required=False, positive=True)
     sd = cells.number("static_depth", required=False, nonnegative=True)
     tested_on = cells.timestamp("tested_on", required=False, date_only=True)
+    # optional: where the screen starts, whether the interval is confined, and the kind of open interval
+    top = cells.number("screen_top_depth", required=False, nonnegative=True)
+    confined = cells.choice("confined", ("true", "false"), required=False,
+                            aliases={"yes": "true", "no": "false", "1": "true", "0": "false"})
+    gkind = cells.choice("geometry_kind", SLUG_GEOMETRY_KINDS, required=False,
+                         aliases={"open hole": "open_hole", "open-hole": "open_hole"})
     _unique(cells, [well_id, zone_id, test_id], ("well_id", "zone_id", "test_id"))
     _zone_refs(cells, store, well_id, zone_id)
+    if np.isfinite(top).any():
+        zones = store.read("zones", ["well_id", "zone_id", "top_depth", "bottom_depth"])
+        z = pd.DataFrame({"well_id": well_id, "zone_id": zone_id}).merge(zones, on=["well_id", "zone_id"],
+                                                                        how="left")
+        ztop, zbot = z["top_depth"].to_numpy(float), z["bottom_depth"].to_numpy(float)
+        with np.errstate(invalid="ignore"):
+            outside = np.isfinite(top) & ((top < ztop - SCREEN_IN_ZONE_TOL) |
+                                          (top + le > zbot + SCREEN_IN_ZONE_TOL))
+        cells.fail(outside, "screen_top_depth", "the screen (screen_top_depth to screen_top_depth + screen_length) "
+                   "does not lie inside its zone's top_depth to bottom_depth")
+    attrs = _merge_attrs(_attrs(cells, "sluggeometry"), {
+        "screen_top_depth": [float(v) if np.isfinite(v) else None for v in top],
+        "confined": [None if v is None or (isinstance(v, float) and np.isnan(v)) else v == "true"
+                     for v in confined],
+        "geometry_kind": [v if isinstance(v, str) else None for v in gkind]})
     frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "test_id": test_id, "casing_radius": rc,
                           "well_radius": rw, "screen_length": le, "aquifer_thickness": b, "static_depth": sd,
-                          "tested_on": tested_on, "attrs": _attrs(cells, "sluggeometry"),
-                          "source_row": cells.rows})
+                          "tested_on": tested_on, "attrs": attrs, "source_row": cells.rows})
     return frame, None
+
+
+#: metres of water per unit of a transducer reading. psi: 1 psi = 6894.757 Pa over water of density
+#: 1000 kg/m3 under g = 9.80665 m/s2 (standard gravity); kPa likewise; m and ft of water are lengths
+#: (1 ft = 0.3048 m exactly)
+WATER_DENSITY = 1000.0
+STANDARD_GRAVITY = 9.80665
+PSI_PA = 6894.757
+TRANSDUCER_UNITS = {"psi": PSI_PA / (WATER_DENSITY * STANDARD_GRAVITY),
+                    "kpa": 1000.0 / (WATER_DENSITY * STANDARD_GRAVITY),
+                    "m": 1.0, "ft": 0.3048}
+_TRANSDUCER_ALIASES = {"m_water": "m", "ft_water": "ft", "mh2o": "m", "fth2o": "ft", "m of water": "m",
+                       "ft of water": "ft"}
+
+
+def _instants(cells: Cells, column: str, *, required: bool = True) -> pd.Series:
+    """Date-and-time cells as UTC timestamps (offsets applied), keeping fractions of a second (NaT where empty)."""
+    values = cells.text(column, required=required)
+    present = values.notna().to_numpy()
+    parsed = pd.Series(pd.NaT, index=values.index, dtype="datetime64[ns]")
+    if present.any():
+        sub = values[present].astype(str)
+        got = pd.to_datetime(sub, format="ISO8601", errors="coerce", utc=True)
+        bad = got.isna().to_numpy() | (sub.str.len().to_numpy() < 16) | (sub.str.slice(4, 5) != "-").to_numpy()
+        mask = np.zeros(len(values), dtype=bool)
+        mask[np.flatnonzero(present)[bad]] = True
+        first = sub.iloc[int(np.flatnonzero(bad)[0])] if bad.any() else ""
+        cells.fail(mask, column, f"{first!r} is not an ISO 8601 date and time (YYYY-MM-DDTHH:MM[:SS[.fff]])")
+        parsed[present] = got.dt.tz_convert(None).to_numpy()  # UTC, without the zone
+    return parsed
+
+
+def _prepare_transducer(store, path, label, crs_in):
+    """A pressure-transducer export: readings of one or more slug tests -> slug_records rows.
+
+    Each reading (``value`` in psi, kPa, m or ft of water) becomes a water level in the store's length unit.
+    The test starts at ``test_start`` when the file gives it, else at the reading with the largest change
+    from the reading before it (the slug going in or out). The static level is the median of the readings
+    before the start; ``t_s`` is the time since the start in seconds and ``displacement`` the level minus the
+    static level. Readings before the start give the static level only; each stored row keeps its raw reading
+    in ``attrs`` (timestamp, value, value_unit), with the start, how it was found and the static level.
+    """
+    import json
+
+    from ..quantities import LENGTH_UNITS
+
+    cells = _read(path, label, "transducer")
+    well_id, zone_id, test_id = cells.text("well_id"), cells.text("zone_id"), cells.text("test_id")
+    stamp = _instants(cells, "timestamp")
+    value = cells.number("value")
+    unit = cells.choice("value_unit", tuple(TRANSDUCER_UNITS), aliases=_TRANSDUCER_ALIASES)
+    start_given = _instants(cells, "test_start", required=False)
+    stamp_text = pd.Series(stamp.dt.strftime("%Y-%m-%dT%H:%M:%S.%f").to_numpy(), index=stamp.index)
+    _unique(cells, [well_id, zone_id, test_id, stamp_text], ("well_id", "zone_id", "test_id", "timestamp"))
+    _zone_refs(cells, store, well_id, zone_id)
+    level = value * unit.map(TRANSDUCER_UNITS).to_numpy(float) / LENGTH_UNITS[store.settings.length_unit]
+    raw_value = cells.frame["value"].to_numpy()
+    raw_stamp = cells.frame["timestamp"].to_numpy()
+    base_attrs = _attrs(cells, "transducer")
+    key = pd.DataFrame({"w": well_id.to_numpy(), "z": zone_id.to_numpy(), "t": test_id.to_numpy()})
+    parts = []
+    for _, idx in key.groupby(["w", "z", "t"], sort=False).indices.items():
+        idx = idx[np.argsort(stamp.to_numpy()[idx], kind="stable")]
+        ts = stamp.iloc[idx]
+        given = start_given.iloc[idx].dropna().unique()
+        one = np.zeros(len(cells.rows), dtype=bool)
+        one[idx] = True
+        if len(given) > 1:
+            cells.fail(one & start_given.notna().to_numpy(), "test_start",
+                       f"test {test_id.iloc[idx[0]]} has more than one test_start; give one per test")
+        if len(given) == 1:
+            start = pd.Timestamp(given[0])
+            i0 = int(np.searchsorted(ts.to_numpy(), start.to_datetime64()))
+            found = "given (test_start)"
+        else:
+            if len(idx) < 2:
+                cells.fail(one, "timestamp", "a test needs readings before and after its start")
+            i0 = int(np.argmax(np.abs(np.diff(level[idx])))) + 1
+            start = ts.iloc[i0]
+            found = "from the data: the reading with the largest change from the reading before it"
+        if i0 == 0:
+            cells.fail(one, "test_start", f"test {test_id.iloc[idx[0]]} has no reading before its start, so the "
+                       "static level is unknown; keep a few readings of the static level before the test")
+        if len(idx) - i0 < 3:
+            cells.fail(one, "timestamp", f"test {test_id.iloc[idx[0]]} has fewer than 3 readings after its start")
+        static = float(np.median(level[idx[:i0]]))
+        after = idx[i0:]
+        t_s = (ts.iloc[i0:] - start).dt.total_seconds().to_numpy()
+        start_text = start.strftime("%Y-%m-%dT%H:%M:%S" + (".%f" if start.microsecond else ""))
+        attrs = []
+        for n, row in enumerate(after):
+            obj = json.loads(base_attrs.iloc[row]) if isinstance(base_attrs.iloc[row], str) else {}
+            obj.update({"timestamp": raw_stamp[row], "value": raw_value[row], "value_unit": unit.iloc[row],
+                        "test_start": start_text, "start_from": found, "static_level": static,
+                        "static_readings": int(i0)})
+            if n == 0:
+                obj["readings_before_start"] = [[raw_stamp[r], raw_value[r], unit.iloc[r]] for r in idx[:i0]]
+            attrs.append(json.dumps(obj, ensure_ascii=False))
+        parts.append(pd.DataFrame({"well_id": well_id.iloc[after].to_numpy(), "zone_id": zone_id.iloc[after].to_numpy(),
+                                   "test_id": test_id.iloc[after].to_numpy(), "t_s": t_s,
+                                   "displacement": level[after] - static, "attrs": attrs,
+                                   "source_row": cells.rows[after]}))
+    return pd.concat(parts, ignore_index=True), None
 
 
 _PREPARERS = {kind: globals()[f"_prepare_{kind}"] for kind in KINDS}

@@ -21,11 +21,13 @@ WELL_KINDS = ("monitoring", "multizone", "pumping", "supply", "other")
 ZONE_KINDS = ("screen", "port", "open_hole", "packer")
 KTEST_METHODS = ("slug", "pumping", "packer", "core", "specific_capacity", "other")
 QUALITIES = ("good", "fair", "poor")
+#: what a K test measured: K along the layers (most slug and pumping tests) or across them (vertical tests)
+KTEST_ORIENTATIONS = ("horizontal", "vertical")
 AREA_KINDS = ("recharge", "domain", "noflow")
 
-SCHEMA_VERSION = "2"
+SCHEMA_VERSION = "3"
 #: versions that ``hydroatlas upgrade`` can bring to :data:`SCHEMA_VERSION`
-UPGRADABLE_VERSIONS = ("1",)
+UPGRADABLE_VERSIONS = ("1", "2")
 #: columns of every provenance table that only retire/restore change
 LIFECYCLE_COLUMNS = ("retired_at", "retired_reason")
 HISTORY_TABLE = "record_history"
@@ -131,11 +133,14 @@ _add(Table(
     "ktests",
     (C("well_id", not_null=True), C("zone_id", not_null=True), C("test_id", not_null=True),
      C("tested_on", not_null=True), C("method", not_null=True), C("k", "REAL", True),
-     C("k_unit", not_null=True), C("k_ms", "REAL", True), C("quality"), C("source")),
+     C("k_unit", not_null=True), C("k_ms", "REAL", True), C("quality"), C("source"),
+     C("orientation", default="'horizontal'")),
     key=("well_id", "zone_id", "test_id"),
     foreign_keys=((("well_id", "zone_id"), "zones", ("well_id", "zone_id")),),
-    checks=("k > 0", "k_ms > 0", _in("method", KTEST_METHODS, nullable=False), _in("quality", QUALITIES)),
-    description="Hydraulic-conductivity tests; k and k_unit as given, k_ms in m/s.",
+    checks=("k > 0", "k_ms > 0", _in("method", KTEST_METHODS, nullable=False), _in("quality", QUALITIES),
+            _in("orientation", KTEST_ORIENTATIONS)),
+    description="Hydraulic-conductivity tests; k and k_unit as given, k_ms in m/s; orientation horizontal "
+                "(K along the layers, the default) or vertical (K across them).",
 ))
 _add(Table(
     "heads",

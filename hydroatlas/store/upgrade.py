@@ -3,7 +3,12 @@
 Version 1: the first release. Version 2 adds retirement (``retired_at``,
 ``retired_reason`` on every record table), the record history table with its
 triggers, and K-test keys that do not depend on how the value was written
-(``method@date`` instead of ``date|method|k|unit`` when the file gave no test_id).
+(``method@date`` instead of ``date|method|k|unit`` when the file gave no test_id). Version 3 adds the
+``orientation`` of K tests (``horizontal``, the default given to every existing test, or ``vertical``).
+
+An upgrade adds every column the current schema has and the store lacks (with its default and its CHECK
+constraint), creates the history table when missing, and drops and recreates the history triggers of every
+table, since they list every column.
 """
 
 from __future__ import annotations
@@ -42,7 +47,7 @@ _OLD_KTEST_ID = re.compile(r"^(\d{4}-\d{2}-\d{2})\|([a-z_]+)\|.*\|.*$")
 def upgrade_geopackage(path) -> tuple[str, str]:
     """Migrate the GeoPackage store at ``path`` to :data:`SCHEMA_VERSION`; returns (old, new) versions."""
     from . import gpkg_sql
-    from .geopackage import GeoPackageStore, _now, history_triggers, q, table_ddl
+    from .geopackage import GeoPackageStore, _column_sql, _now, history_triggers, q, table_ddl
 
     path = Path(path)
     conn = GeoPackageStore._connect(path)
@@ -54,26 +59,38 @@ def upgrade_geopackage(path) -> tuple[str, str]:
             raise version_problem(version, path)
         gpkg_sql.begin_write(conn, path)
         try:
+            tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
             for spec in TABLES.values():
                 if spec.name == HISTORY_TABLE:
-                    for stmt in table_ddl(spec):
-                        conn.execute(stmt)
-                    conn.execute("INSERT INTO gpkg_contents (table_name, data_type, identifier, description, "
-                                 "last_change) VALUES (?, 'attributes', ?, ?, ?)",
-                                 (spec.name, spec.name, spec.description, _now()))
+                    if spec.name not in tables:
+                        for stmt in table_ddl(spec):
+                            conn.execute(stmt)
+                        conn.execute("INSERT INTO gpkg_contents (table_name, data_type, identifier, description, "
+                                     "last_change) VALUES (?, 'attributes', ?, ?, ?)",
+                                     (spec.name, spec.name, spec.description, _now()))
                     continue
                 if not spec.provenance:
                     continue
                 present = {r[1] for r in conn.execute(f"PRAGMA table_info({q(spec.name)})")}
+                for col in spec.columns:
+                    if col.name not in present:  # with its default and the CHECK constraints on it alone
+                        checks = [c for c in spec.checks if re.search(rf"\b{col.name}\b", c)
+                                  and not any(re.search(rf"\b{o.name}\b", c) for o in spec.columns if o is not col)]
+                        conn.execute(f"ALTER TABLE {q(spec.name)} ADD COLUMN {_column_sql(col)}"
+                                     + "".join(f" CHECK ({c})" for c in checks))
                 for col in spec.lifecycle:
                     if col not in present:
                         conn.execute(f"ALTER TABLE {q(spec.name)} ADD COLUMN {q(col)} TEXT")
+            # the history triggers list every column: drop them and make them again for the new columns
             for spec in TABLES.values():
+                for suffix in ("_keep_history_update", "_keep_history_delete"):
+                    conn.execute(f"DROP TRIGGER IF EXISTS {q(spec.name + suffix)}")
                 for stmt in history_triggers(spec):
                     conn.execute(stmt)
-            # K tests keyed by their written value get the key of version 2, where it is unique in the zone;
-            # the trigger keeps the old key in the history
-            rows = conn.execute("SELECT fid, well_id, zone_id, test_id FROM ktests").fetchall()
+            # K tests keyed by their written value (version 1) get the key of version 2, where it is unique in the
+            # zone; the trigger keeps the old key in the history
+            rows = conn.execute("SELECT fid, well_id, zone_id, test_id FROM ktests").fetchall() if version == "1" \
+                else []
             taken = {(w, z, t) for _, w, z, t in rows}
             for fid, w, z, t in rows:
                 m = _OLD_KTEST_ID.match(t or "")

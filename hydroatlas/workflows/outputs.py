@@ -452,6 +452,12 @@ def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str | None = N
                                                                                     k_unit))})
         rows = [r for r in unit_stats(store, k_unit=k_unit, policy=policy) if r["n_tests"]]
         written += figures.logk_distribution(out / "logk_by_unit", values, rows, k_unit=k_unit)
+    if not store.read("slug_records", ["well_id"]).empty:  # one figure per slug test, by the method last asked
+        from .slug_jobs import reduce_slug_tests, slug_method_asked
+
+        slugs = reduce_slug_tests(store, method=slug_method_asked(store), write=False,
+                                  figures=output_path(out, "slugs"))
+        written += [Path(p) for p in slugs.attrs["figures"]]
     for side_path in sorted(folder.glob("*_*.json")):
         if side_path.name.startswith("."):  # a temporary file of an interrupted writer
             continue
@@ -483,17 +489,30 @@ def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str | None = N
 
 # -- model grid (SPEC 2.10) ----------------------------------------------------------
 MODEL_MAX_CELLS = 20_000_000
+#: inverse-distance weighting of the contact surfaces (residuals from a least-squares plane)
+CONTACT_IDW_POWER = 2.0
+CONTACT_IDW_NEIGHBORS = 12
+CONTACT_METHOD = ("each contact between units (a unit's top and bottom) interpolated on its own from the picked "
+                  "elevations (ground_elev - depth) of the wells that give it: least-squares plane plus inverse-"
+                  f"distance weighting (power {CONTACT_IDW_POWER:g}, {CONTACT_IDW_NEIGHBORS} nearest wells) of the "
+                  "residuals, exact at the wells (to floating-point rounding); the plane is held flat beyond the "
+                  "wells' bounding box; each contact kept at or below the one above, and a unit's top and bottom "
+                  "made one outside its extent from the picks")
 
 
 def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=None, rotation: float = 0.0,
                layers: list[str] | None = None, kv_ratio: float = 10.0, k_source: str = "mean",
-               min_thickness: float = 1.0, surfaces=None, max_cells: int | None = None,
-               policy: SelectionPolicy | None = None) -> dict:
-    """A regular model grid with one layer per unit: tops, bottoms, K_h, K_v, starting heads and an active mask.
+               min_thickness: float = 1.0, merge_down: bool = False, base: float | None = None,
+               base_thickness: float | None = None, surfaces=None, max_cells: int | None = None,
+               policy: SelectionPolicy | None = None, mf6=None, spring_conductance: float | None = None) -> dict:
+    """A regular model grid with one layer per unit: geometry, idomain, K_h, K_v, starting heads, icelltype.
 
-    The K tests behind the layer K follow the selection policy (None: the default); manifest.json holds it
-    under ``selection``, and the selections of the head surfaces used for starting heads under
-    ``head_surface_selections``.
+    Builds a :class:`hydroatlas.layering.ModelLayers` in the store's units (elevations and heads in its length
+    unit, K in that unit per day) and writes it with :func:`hydroatlas.export.modelgrid.write_model_grid` (NetCDF,
+    plain arrays, manifest.json) and, with ``mf6``, as a MODFLOW 6 simulation
+    (:func:`hydroatlas.export.mf6.write_mf6`). The K tests behind the layer K follow the selection policy (None:
+    the default); manifest.json holds it under ``selection``, and the selections of the head surfaces used for
+    starting heads under ``head_surface_selections``.
 
     Parameters
     ----------
@@ -506,27 +525,40 @@ def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=
     rotation : float
         Degrees counter-clockwise about the origin.
     layers : list of unit codes, optional
-        In stratigraphic order; default all units with picks.
+        In stratigraphic order; default every unit with picks. A unit left out between two chosen ones is merged
+        into the layer above (below with ``merge_down``); units above the first or below the last chosen one
+        are not in the model (the model top is the top of the first chosen unit).
     kv_ratio : float
-        K_h / K_v of aquifer layers; aquitard and confining layers take K_v = K_h (their tests stand for
-        the vertical conductivity that controls leakage).
+        K_h / K_v of a unit without vertical K tests (and K_h = K_v x ratio of a unit with vertical tests only).
     k_source : {'mean', 'surface'}
-        K_h from the unit geometric mean or from its log-K surface (`hydroatlas surface --quantity logk`).
+        K_h from the geometric mean of the unit's horizontal tests, or from its log-K surface
+        (`hydroatlas surface --quantity logk`).
     min_thickness : float
-        Smallest layer thickness (store length unit); thinner cells are raised to it and flagged pinched.
+        Thinnest active cell (store length unit); a thinner cell, or one where the unit is absent, is a vertical
+        pass-through cell (idomain -1) that keeps its true elevations.
+    merge_down : bool
+        Merge left-out units into the layer below instead of the layer above.
+    base, base_thickness : float, optional
+        Bottom of the lowest layer as an elevation, or as a thickness below its top (store length unit). Needed
+        where no well reaches the base of the lowest unit; without them the mean penetrated thickness is used,
+        with a warning in the notes.
+    mf6 : path, optional
+        Folder for a MODFLOW 6 simulation (flopy needed).
+    spring_conductance : float, optional
+        Drain conductance of a spring cell in the MODFLOW 6 simulation (store length unit squared per day).
 
-    Layer geometry: the ground surface and each unit's thickness are interpolated (inverse-distance
-    weighting, exact at wells) from the picks; a unit counts as zero thickness at wells whose picks
-    show it absent (:func:`hydroatlas.assign.unit_presence`) and in every cell outside its extent
-    (nearer to such a well than to one that has it): those cells are flagged pinched, and the manifest's
-    grid ``cells_outside_unit_extent`` counts them per layer; picks ending at a well's total
-    depth do not give a thickness. Layers are stacked downward from the ground, so each top equals the
-    bottom of the layer above.
+    Geometry: see :mod:`hydroatlas.layering`. Each contact between successive units is interpolated from the
+    picks of the wells that give it (exact at the wells); the ground is the top of the first unit; a unit
+    absent at a well (:func:`hydroatlas.assign.unit_presence`) has its top and bottom at one elevation there
+    and zero thickness outside its extent. Layers are never stacked down from the ground, so leaving a unit out
+    or pinching one out moves no other layer.
     """
     import math
+    from datetime import datetime, timezone
 
+    from .. import layering
     from ..export.modelgrid import write_model_grid
-    from ..interp import IDW
+    from ..quantities import k_from_ms, store_units
 
     if not (isinstance(cell, (int, float)) and cell > 0):
         raise ParameterError(f"--cell must be > 0; got {cell}")
@@ -538,23 +570,60 @@ def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=
         raise ParameterError(f"--min-thickness must be > 0; got {min_thickness}")
     if k_source not in ("mean", "surface"):
         raise ParameterError(f"k_source must be 'mean' or 'surface'; got {k_source!r}")
+    if base is not None and base_thickness is not None:
+        raise ParameterError("give --base or --base-thickness, not both")
+    if base is not None and not math.isfinite(base):
+        raise ParameterError(f"--base must be a finite elevation; got {base}")
+    if base_thickness is not None and not (math.isfinite(base_thickness) and base_thickness > 0):
+        raise ParameterError(f"--base-thickness must be > 0; got {base_thickness}")
     _crs_to_m(store)  # refuses a geographic store CRS
-    units = store.read("units").sort_values("rank")
-    picks_all = assign.finest_picks(store.read("picks"), units)
+    L = store.settings.length_unit
+    units = store.read("units").sort_values("rank").reset_index(drop=True)
+    role_of = dict(zip(units["code"], units["role"]))
+    raw_picks = store.read("picks")
+    picks_all = assign.finest_picks(raw_picks, units)
     wells = store.read("wells", ["well_id", "x", "y", "ground_elev", "total_depth"])
     picked = set(picks_all["unit"])
+    # the sequence of units is the finest one (sub-units instead of their parent); a code covers its members
+    parents = set(units["parent"].dropna())
+    leaves = [c for c in units["code"] if c not in parents]
+    leaf_index = {c: i for i, c in enumerate(leaves)}
+    chains = assign.unit_ancestors(units)
+
+    def span(code):
+        idx = sorted(leaf_index[c] for c in leaves if c == code or code in chains[c])
+        if not idx:
+            raise ParameterError(f"unit {code} has no sub-units without sub-units of their own")
+        if idx != list(range(idx[0], idx[-1] + 1)):
+            raise ParameterError(f"the sub-units of {code} are not next to each other in rank; choose them as layers")
+        return idx[0], idx[-1]
+
     if layers is None:
-        layers = [c for c in units["code"] if c in picked]
+        layers = [c for c in units["code"] if c in picked
+                  and not (c in parents and any(code in picked for code in _unit_members(units, c) - {c}))]
         if not layers:
             raise ParameterError("the store has no unit picks; a model grid needs them")
-    rank = dict(zip(units["code"], units["rank"]))
+    layers = list(layers)
     for code in layers:
-        _unit_members(units, code)
-        if code not in picked:
+        members = _unit_members(units, code)
+        if not members & picked:
             raise ParameterError(f"unit {code} has no picks anywhere; its layer geometry is unknown")
-    if [rank[c] for c in layers] != sorted(rank[c] for c in layers) or len(set(layers)) != len(layers):
-        raise ParameterError(f"layers {','.join(layers)} are not in stratigraphic order (top first): expected "
-                             f"{','.join(sorted(layers, key=rank.get))}")
+    spans = [span(c) for c in layers]
+    rank = dict(zip(units["code"], units["rank"]))
+    if len(set(layers)) != len(layers) or any(b[0] <= a[1] for a, b in zip(spans, spans[1:])):
+        raise ParameterError(f"layers {','.join(layers)} are not in stratigraphic order (top first) or overlap: "
+                             f"expected e.g. {','.join(sorted(dict.fromkeys(layers), key=rank.get))}")
+    groups, merged_idx, above_idx, below_idx = layering.layer_groups(len(leaves), spans, merge_down=merge_down)
+    merged = {code: [leaves[j] for j in m] for code, m in zip(layers, merged_idx) if m}
+    notes: list[str] = [f"layer geometry: {CONTACT_METHOD}"]
+    if above_idx:
+        notes.append(f"units above the first layer are not in the model: {', '.join(leaves[j] for j in above_idx)}; "
+                     f"the model top is the top of {layers[0]}")
+    if below_idx:
+        notes.append(f"units below the last layer are not in the model: {', '.join(leaves[j] for j in below_idx)}")
+    for code, m in merged.items():
+        notes.append(f"{', '.join(m)} merged into layer {code} ({'below' if merge_down else 'above'} "
+                     f"{'them' if len(m) > 1 else 'it'}): thickness-weighted arithmetic K_h, harmonic K_v")
     # grid geometry
     domain = _domain_polygons(store, layers[0])
     if origin is None:
@@ -578,12 +647,7 @@ def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=
     if nrow * ncol * len(layers) > limit:
         raise ParameterError(f"{len(layers)} layers x {nrow} x {ncol} cells = {nrow * ncol * len(layers):,} cells, "
                              f"more than the maximum of {limit:,}; choose a larger --cell")
-    theta = math.radians(rotation)
-    cols = (np.arange(ncol) + 0.5) * cell
-    rows = (nrow - np.arange(nrow) - 0.5) * cell  # row 1 at the far side (north when unrotated)
-    u, v = np.meshgrid(cols, rows)
-    xc = x0 + u * math.cos(theta) - v * math.sin(theta)
-    yc = y0 + u * math.sin(theta) + v * math.cos(theta)
+    xc, yc = layering.grid_cell_centres(x0, y0, cell, nrow, ncol, rotation)
     pts = np.column_stack([xc.ravel(), yc.ravel()])
     if domain is not None:
         import shapely
@@ -593,117 +657,253 @@ def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=
         active = np.ones((nrow, ncol), bool)
     if not active.any():
         raise ParameterError("no cell of the grid lies inside the domain polygon")
-    # layer geometry from picks
-    L = store.settings.length_unit
-    ground = IDW(2.0, neighbors=12).fit(wells[["x", "y"]].to_numpy(float), wells["ground_elev"].to_numpy(float)) \
-        .predict(pts).reshape(nrow, ncol)
-    p = picks_all.merge(wells, on="well_id")
-    known_base = ~(p["bottom_depth"] >= p["total_depth"] - 1e-6)
-    p["thickness"] = p["bottom_depth"] - p["top_depth"]
-    tops, bottoms, pinched = [], [], []
-    outside_extent = {}
-    current = ground.copy()
-    for code in layers:
-        here = p[(p["unit"] == code) & known_base]
-        if here.empty:  # never fully penetrated: use the penetrated thickness (a lower bound)
-            here = p[p["unit"] == code]
-        xy = here[["x", "y"]].to_numpy(float)
-        b = here["thickness"].to_numpy(float)
-        # wells whose picks show the unit absent (assign.unit_presence): zero thickness there, and zero
-        # in every cell outside the unit's extent (nearer to such a well than to one that has the unit)
-        presence = unit_presence_of(store, code, units)
-        aw = presence[presence["present"].eq(False).fillna(False).to_numpy(bool)]
-        if len(aw):
-            xy = np.vstack([xy, aw[["x", "y"]].to_numpy(float)])
-            b = np.concatenate([b, np.zeros(len(aw))])
-        thick = IDW(2.0, neighbors=12).fit(xy, b).predict(pts).reshape(nrow, ncol)
-        outside = ~assign.inside_extent(presence, pts).reshape(nrow, ncol)
-        outside_extent[code] = int((outside & active).sum())
-        thick = np.where(outside, 0.0, thick)
-        thin = thick < min_thickness
-        thick = np.where(thin, min_thickness, thick)
-        tops.append(current)
-        current = current - thick
-        bottoms.append(current)
-        pinched.append(thin.astype("int8"))
-    top, bottom = np.array(tops), np.array(bottoms)
-    # hydraulic conductivity (length unit per day)
-    len_per_m = 1.0 / _length_to_m(store)
-    rows, k_selection = unit_stats_selected(store, k_unit="m/d", policy=policy)
-    stats_rows = {r["unit"]: r for r in rows}
+    # contacts at the wells, from the picks and the presence of each unit
+    wxy = wells[["x", "y"]].to_numpy(float)
+    ground_w = wells["ground_elev"].to_numpy(float)
+    row_of = {w: i for i, w in enumerate(wells["well_id"])}
+    n = len(leaves)
+    top_w = np.full((len(wells), n), np.nan)
+    bot_w = np.full((len(wells), n), np.nan)
+    known_w = np.zeros((len(wells), n), bool)
+    p = picks_all.merge(wells[["well_id", "ground_elev", "total_depth"]], on="well_id")
+    for r in p.itertuples(index=False):
+        if r.unit not in rank or r.well_id not in row_of:
+            continue
+        first, last = span(r.unit) if r.unit not in leaf_index else (leaf_index[r.unit],) * 2
+        i = row_of[r.well_id]
+        ended = np.isfinite(r.total_depth) and r.bottom_depth >= r.total_depth - 1e-6
+        if np.isnan(top_w[i, first]):
+            top_w[i, first] = r.ground_elev - r.top_depth
+        if np.isnan(bot_w[i, last]):
+            bot_w[i, last] = r.ground_elev - r.bottom_depth
+            known_w[i, last] = not ended
+    located = wells[["well_id", "x", "y"]]
+    presence = []
+    pres_w = np.full((len(wells), n), -1, dtype="int8")
+    for j, code in enumerate(leaves):
+        pres = assign.unit_presence(raw_picks, located, units, code)
+        presence.append(pres)
+        flag = pres["present"]
+        pres_w[:, j] = np.where(flag.isna(), -1, np.where(flag.fillna(False).astype(bool), 1, 0))
+    contacts_w, mismatch = layering.well_contacts(ground_w, top_w, bot_w, known_w, pres_w)
+    c_first, c_last = groups[0][0], groups[-1][1] + 1
+    raw = np.stack([layering.interpolate_surface(wxy, contacts_w[:, c], pts, power=CONTACT_IDW_POWER,
+                                                 neighbors=CONTACT_IDW_NEIGHBORS).reshape(nrow, ncol)
+                    for c in range(c_last + 1)])
+    inside = np.stack([assign.inside_extent(presence[j], pts).reshape(nrow, ncol) for j in range(c_last)])
+    outside_extent = {leaves[j]: int((~inside[j] & active).sum()) for j in range(c_first, c_last)}
+    with_data = np.isfinite(contacts_w).any(axis=0)
+    boundaries = {groups[0][0]} | {last + 1 for _, last in groups[:-1]}
+    for c in sorted(boundaries):
+        if c > 0 and not with_data[c]:
+            raise InsufficientDataError(f"no well gives the contact between {leaves[c - 1]} and {leaves[c]} (the "
+                                        f"picks of {leaves[c - 1]} all end at the wells' total depth and no well "
+                                        f"has a pick of {leaves[c]}); the layers there are unknown")
+    contacts = layering.order_contacts(raw, inside)
+    # the bottom of the lowest layer: picked, or --base / --base-thickness, or the stated default
+    base_unit = leaves[c_last - 1]
+    ceiling = contacts[c_first].copy()
+    for c in range(c_first + 1, c_last):
+        ceiling = np.where(np.isfinite(contacts[c]), contacts[c], ceiling)
+    n_base = int(np.isfinite(contacts_w[:, c_last]).sum())
+    rule = None
+    if base is not None:
+        bottom = np.minimum(base, ceiling)
+        rule = f"--base {base:g} {L}"
+    elif base_thickness is not None:
+        bottom = ceiling - base_thickness
+        rule = f"--base-thickness {base_thickness:g} {L}"
+    elif not with_data[c_last]:
+        here = p[p["unit"].isin(_unit_members(units, base_unit))]
+        pen = (here["bottom_depth"] - here["top_depth"]).to_numpy(float)
+        if pen.size == 0 or not np.isfinite(pen).any():
+            raise InsufficientDataError(f"the base of {base_unit} is unknown: give --base ELEV or --base-thickness")
+        t_mean = float(np.nanmean(pen))
+        bottom = ceiling - t_mean
+        rule = f"default: the mean penetrated thickness of {base_unit}, {t_mean:.4g} {L}"
+        notes.append(f"warning: no well reaches the base of {base_unit} (every pick of it ends at the well's total "
+                     f"depth); the lowest layer's bottom lies the mean penetrated thickness ({t_mean:.4g} {L}, a lower "
+                     "bound of the true thickness) below its top; give --base or --base-thickness to set it")
+    if rule is not None:
+        bottom = np.where(inside[c_last - 1], bottom, ceiling)
+        contacts[c_last] = np.minimum(bottom, ceiling)
+        if base is not None or base_thickness is not None:
+            notes.append(f"bottom of the lowest layer ({base_unit}) from {rule}"
+                         + (f"; it replaces the base picked at {n_base} well(s)" if n_base else ""))
+    for c in range(c_first + 1, c_last):  # a contact inside a merged layer that no well gives: zero thickness
+        miss = ~np.isfinite(contacts[c])
+        if miss.any():
+            contacts[c] = np.where(miss, contacts[c - 1], contacts[c])
+            notes.append(f"no well gives the top of {leaves[c]}: inside its layer it counts as zero thickness "
+                         "for the layer K")
+    off = mismatch[:, c_first:c_last + 1] > assign.EXTENT_TOLERANCE
+    if off.any():
+        notes.append(f"{int(off.any(axis=1).sum())} well(s) have picks that leave a gap or overlap at a contact "
+                     f"(largest {float(mismatch[:, c_first:c_last + 1].max()):.4g} {L}); the contact is the mean there")
+    top, botm, idomain, emptied = layering.layer_geometry(contacts, groups, min_thickness=min_thickness,
+                                                          active=active)
+    thick = np.concatenate([top[None], botm[:-1]]) - botm
+    pass_through = {code: int((idomain[k] == layering.PASS_THROUGH).sum()) for k, code in enumerate(layers)}
+    for code, count in pass_through.items():
+        if count:
+            notes.append(f"{code}: {count} cell(s) thinner than {min_thickness:g} {L} or where the unit is absent "
+                         "are vertical pass-through cells (idomain -1) with their true elevations")
+    if emptied:
+        notes.append(f"{emptied} column(s) inside the domain have no layer as thick as {min_thickness:g} {L}: "
+                     "made inactive (idomain 0)")
+    # hydraulic conductivity per unit: K_h from horizontal tests, K_v from vertical tests or the ratio
+    k_unit = store_units(L).k
+    asg = zone_assignment(store)
+    tests, k_left_out = select_ktests(store, policy, asg)
+    k_selection = selection_record(policy, k_left_out)
+    orient = store.read("ktests", ["well_id", "zone_id", "test_id", "orientation"])
+    tests = tests.merge(orient, on=["well_id", "zone_id", "test_id"], how="left")
+    tests["orientation"] = tests["orientation"].fillna("horizontal")
     folder = Path(surfaces) if surfaces is not None else Path(out).parent
-    kh, kv = [], []
-    for code in layers:
-        if stats_rows[code]["k_geomean"] is None:
-            raise InsufficientDataError(f"unit {code} has no K tests; its layer K is unknown")
-        if k_source == "surface":
+    k_info = {}
+
+    def unit_k(code, *, primary: bool):
+        """(K_h, K_v) of a unit in the store's K unit (arrays (nrow, ncol)) and what they rest on; None if no tests."""
+        mine = tests[tests["unit"].isin(_unit_members(units, code))]
+        horiz = mine.loc[mine["orientation"] == "horizontal", "k_ms"].to_numpy(float)
+        vert = mine.loc[mine["orientation"] == "vertical", "k_ms"].to_numpy(float)
+        gmean = (lambda v: float(k_from_ms(10.0 ** np.mean(np.log10(v)), k_unit)))
+        info = {"n_horizontal_tests": int(horiz.size), "n_vertical_tests": int(vert.size)}
+        if horiz.size:
+            kh = np.full((nrow, ncol), gmean(horiz))
+            info["k_h"] = f"geometric mean of {horiz.size} horizontal test(s)"
+        elif vert.size:
+            kh = np.full((nrow, ncol), gmean(vert) * kv_ratio)
+            info["k_h"] = f"no horizontal tests: K_v x --kv-ratio {kv_ratio:g}"
+        else:
+            return None, info
+        if primary and k_source == "surface":
             from .surfaces import read_logk_m_per_d
 
             grid_s, k_surface_md, _ = read_logk_m_per_d(folder, code, store)  # the surface's K unit -> m/d
             k_md = 10.0 ** _sample_grid(grid_s, np.log10(k_surface_md), pts).reshape(nrow, ncol)
-            k_md = np.where(np.isfinite(k_md), k_md, stats_rows[code]["k_geomean"])
+            from ..quantities import convert
+
+            kh = np.where(np.isfinite(k_md), convert(k_md, "m/d", k_unit, "hydraulic conductivity"), kh)
+            info["k_h"] = "log-K surface sampled at the cells (the test mean where it has no value)"
+        if vert.size:
+            kv = np.full((nrow, ncol), gmean(vert))
+            info["k_v"] = f"geometric mean of {vert.size} vertical test(s)"
         else:
-            k_md = np.full((nrow, ncol), stats_rows[code]["k_geomean"])
-        k_len = k_md * len_per_m
-        role = units.set_index("code").loc[code, "role"]
-        kh.append(k_len)
-        kv.append(k_len if role in ("aquitard", "confining") else k_len / kv_ratio)
-    # starting heads: the unit's head surface, else the nearest layer that has one
-    heads, have = [], []
-    for code in layers:
-        if unit_path(folder, code, "head.tif").is_file():
-            grid_s, h = read_surface(folder, code, "head", store.location)
-            hv = _sample_grid(grid_s, h, pts).reshape(nrow, ncol)
-            heads.append(hv)
-            have.append(True)
-        else:
-            heads.append(None)
+            kv = kh / kv_ratio
+            info["k_v"] = f"K_h / --kv-ratio {kv_ratio:g} (no vertical tests)"
+        return (kh, kv), info
+
+    kh_layers, kv_layers = [], []
+    for k, (code, (first, last)) in enumerate(zip(layers, groups)):
+        own, info = unit_k(code, primary=True)
+        if own is None:
+            raise InsufficientDataError(f"unit {code} has no K tests; its layer K is unknown: import tests of it, or "
+                                        "leave it out of --layers (a unit between two layers joins one of them)")
+        k_info[code] = info
+        parts_b, parts_h, parts_v = [], [], []
+        own_first, own_last = spans[k]
+        parts_b.append(contacts[own_first] - contacts[own_last + 1])
+        parts_h.append(own[0])
+        parts_v.append(own[1])
+        for j in merged_idx[k]:
+            got, minfo = unit_k(leaves[j], primary=False)
+            if got is None:
+                got = own
+                notes.append(f"warning: {leaves[j]} (merged into layer {code}) has no K tests: it takes the K of "
+                             f"{code}; choose the layers so that it joins a unit of its kind (--merge-down)")
+            k_info[f"{leaves[j]} (merged into {code})"] = minfo
+            parts_b.append(contacts[j] - contacts[j + 1])
+            parts_h.append(got[0])
+            parts_v.append(got[1])
+        kh, kv = layering.effective_k(np.stack(parts_b), np.stack(parts_h), np.stack(parts_v), primary=0)
+        kh_layers.append(kh)
+        kv_layers.append(kv)
+        if role_of.get(code) in layering.CONFINING_ROLES and not info["n_vertical_tests"]:
+            notes.append(f"{code} ({role_of.get(code)}): no vertical K tests (column orientation); "
+                         f"K_v = K_h / {kv_ratio:g}")
+    # starting heads: each layer's own head surface, masked outside its unit's extent; aquitards and layers
+    # without a surface lie between the layers with heads above and below
+    roles = [role_of.get(c, "other") for c in layers]
+    confining = np.array([r in layering.CONFINING_ROLES for r in roles])
+    own_heads = np.full((len(layers), nrow, ncol), np.nan)
+    have = []
+    for k, code in enumerate(layers):
+        if not unit_path(folder, code, "head.tif").is_file():
             have.append(False)
+            continue
+        grid_s, h = read_surface(folder, code, "head", store.location)
+        hv = _sample_grid(grid_s, h, pts).reshape(nrow, ncol)
+        own_first, own_last = spans[k]
+        in_unit = inside[own_first:own_last + 1].any(axis=0)
+        own_heads[k] = np.where(in_unit, hv, np.nan)
+        have.append(True)
     if not any(have):
         raise ParameterError(f"no head surface for any layer in {folder}; make one with 'hydroatlas surface "
                              f"{store.location} --unit {layers[0]} --quantity head --out {folder}'")
-    borrowed = []
-    for k in range(len(layers)):
-        if have[k]:
-            borrowed.append(np.zeros((nrow, ncol), "int8"))
-            continue
-        near = min((j for j in range(len(layers)) if have[j]), key=lambda j: (abs(j - k), j))
-        heads[k] = heads[near]
-        borrowed.append(np.ones((nrow, ncol), "int8"))
-    start = np.array(heads)
-    # fill cells outside a head surface's mask from the layer's mean, flagged as borrowed
-    for k in range(len(layers)):
-        miss = ~np.isfinite(start[k])
-        if miss.any():
-            start[k][miss] = np.nanmean(start[k]) if np.isfinite(start[k]).any() else np.nan
-            borrowed[k][miss] = 1
-    arrays = {"top": top, "bottom": bottom, "thickness": top - bottom, "kh": np.array(kh), "kv": np.array(kv),
-              "start_head": start, "pinched": np.array(pinched), "head_borrowed": np.array(borrowed)}
-    grid_info = {"origin": [x0, y0], "origin_is": "lower-left corner", "cell": cell, "rows": nrow, "cols": ncol,
-                 "rotation": rotation, "rotation_is": "degrees counter-clockwise about the origin",
-                 "min_thickness": min_thickness, "kv_ratio": kv_ratio, "k_source": k_source,
-                 "cells_outside_unit_extent": outside_extent}
-    from datetime import datetime, timezone
-
+    if not np.isfinite(own_heads).any():
+        raise InsufficientDataError(f"the head surfaces in {folder} have no value inside the grid")
+    strt, strt_source = layering.starting_heads(own_heads, top, botm, confining=confining)
+    for k, code in enumerate(layers):
+        counts = {c: int((strt_source[k][active] == c).sum()) for c in layering.STRT_SOURCES}
+        if not have[k]:
+            notes.append(f"{code} has no head surface of its own (none in {folder}): its starting heads are "
+                         f"{_strt_words(counts)}")
+        elif confining[k]:
+            notes.append(f"{code} ({roles[k]}): starting heads {_strt_words(counts)}; its own head surface is used "
+                         "only where a side has no head")
+        elif counts[layering.STRT_OWN] < int(active.sum()):
+            notes.append(f"{code}: starting heads from its own head surface in {counts[layering.STRT_OWN]} of "
+                         f"{int(active.sum())} active columns; elsewhere {_strt_words(counts, skip_own=True)}")
+    icelltype, icell_why = layering.cell_types(roles, strt, top, botm, idomain)
+    notes += [f"{code}: icelltype {int(t)} ({why})" for code, t, why in zip(layers, icelltype, icell_why)]
+    model = layering.ModelLayers(
+        units=list(layers), roles=roles, top=top, botm=botm, idomain=idomain, k=np.stack(kh_layers),
+        k33=np.stack(kv_layers), strt=strt, icelltype=icelltype, length_unit=L, k_unit=k_unit, time_unit="days",
+        merged=merged, notes=notes, x0=x0, y0=y0, cell=float(cell), nrow=nrow, ncol=ncol, rotation=float(rotation),
+        crs=store.settings.crs, strt_source=strt_source)
+    grid_info = {"min_thickness": min_thickness, "kv_ratio": kv_ratio, "k_source": k_source,
+                 "merge_down": bool(merge_down), "base": base, "base_thickness": base_thickness,
+                 "base_rule": rule or f"picked at {n_base} well(s)",
+                 "cells_outside_unit_extent": outside_extent, "pass_through_cells": pass_through}
     history = (f"{datetime.now(timezone.utc).isoformat(timespec='seconds')} hydroatlas model_grid(cell={cell}, "
                f"origin={origin}, shape={shape}, rotation={rotation}, layers={layers}, kv_ratio={kv_ratio}, "
-               f"k_source={k_source}, min_thickness={min_thickness})")
+               f"k_source={k_source}, min_thickness={min_thickness}, merge_down={merge_down}, base={base}, "
+               f"base_thickness={base_thickness})")
     source = f"hydroatlas store {store.location} (length unit {L}, vertical datum {store.settings.vertical_datum})"
-    files = write_model_grid(out, arrays=arrays, active=active, x=xc, y=yc, layer_units=list(layers),
-                             crs_wkt=store.settings.crs.to_wkt(), length_unit=L, grid_info=grid_info,
-                             history=history, source=source, caution=CAUTION)
-    # the manifest is the grid's sidecar: say which K tests and head readings the layers rest on
-    import json
+    extra = {"grid": grid_info, "geometry_method": CONTACT_METHOD, "k_sources": k_info,
+             "strt_sources": {str(c): w for c, w in layering.STRT_SOURCES.items()},
+             "selection": k_selection,
+             "head_surface_selections": {code: sidecar_selection(unit_path(folder, code, "head.json"))
+                                         for code, ok in zip(layers, have) if ok}}
+    mf6_summary = None
+    if mf6 is not None:  # written first, so that the manifest can say what it holds (wells, springs, conductance)
+        from ..export.mf6 import model_name, pumping_now, write_mf6
 
-    from ..export.rasters import write_sidecar
+        pumped = pumping_now(store.read("pumping"), store.read("zones"), store.read("wells"))
+        springs = store.read("springs", ["spring_id", "x", "y", "elev"])
+        mf6_summary = write_mf6(mf6, model, wells=pumped, springs=springs, spring_conductance=spring_conductance,
+                                name=model_name(Path(out).stem))
+        extra["mf6"] = mf6_summary
+    files = write_model_grid(out, model, history=history, source=source, caution=CAUTION, manifest_extra=extra)
+    if mf6_summary is not None:
+        files["mf6"] = mf6_summary["folder"]
+    return {"files": files, "mf6": mf6_summary, "layers": list(layers), "shape": (len(layers), nrow, ncol), "model_layers": model,
+            "arrays": {"top": top, "botm": botm, "idomain": idomain, "k": model.k, "k33": model.k33, "strt": strt,
+                       "icelltype": icelltype, "thickness": thick},
+            "active": active, "x": xc, "y": yc, "grid": grid_info, "merged": merged, "notes": notes,
+            "selection": k_selection}
 
-    manifest = json.loads(Path(files["manifest"]).read_text())
-    manifest["selection"] = k_selection
-    manifest["head_surface_selections"] = {code: sidecar_selection(unit_path(folder, code, "head.json"))
-                                           for code, ok in zip(layers, have) if ok}
-    write_sidecar(files["manifest"], manifest)
-    return {"files": files, "layers": list(layers), "shape": (len(layers), nrow, ncol), "arrays": arrays,
-            "active": active, "x": xc, "y": yc, "grid": grid_info, "selection": k_selection}
+
+def _strt_words(counts: dict, *, skip_own: bool = False) -> str:
+    """Where a layer's starting heads come from, in words with cell counts (active columns)."""
+    from ..layering import STRT_BETWEEN, STRT_MEAN, STRT_ONE_SIDE, STRT_OWN
+
+    words = {STRT_OWN: "from its own head surface", STRT_BETWEEN: "linear in elevation between the layers with "
+             "heads above and below", STRT_ONE_SIDE: "those of the nearest layer with heads (one side only)",
+             STRT_MEAN: "the layer's mean (no head in any layer)"}
+    parts = [f"{words[c]} in {v} cell(s)" for c, v in counts.items() if v and not (skip_own and c == STRT_OWN)]
+    return "; ".join(parts) if parts else "none in the active cells"
 
 
 def _sample_grid(grid, values, pts) -> np.ndarray:

@@ -4,11 +4,10 @@ from __future__ import annotations
 
 from typing import Callable
 
-import numpy as np
 import pandas as pd
 
 from .. import assign, quality, stats
-from ..errors import InsufficientDataError, ParameterError
+from ..errors import ParameterError
 from ..selection import SelectionPolicy, left_out_by_unit, select_ktests, selection_record
 from ..store import Store, create_store
 from ..store.importers import ImportReport, import_file
@@ -218,93 +217,3 @@ def _unit_members(units: pd.DataFrame, code: str) -> set[str]:
         if code in chain:
             members.add(c)
     return members
-
-
-SLUG_METHODS = ("hvorslev", "bouwer-rice")
-
-
-def reduce_slug_tests(store: Store, *, method: str = "hvorslev", write: bool = True) -> pd.DataFrame:
-    """Reduce the stored slug-test records to K (SPEC 2.11) and, with ``write``, store them as K tests.
-
-    Each test needs its geometry (kind ``sluggeometry``); Bouwer and Rice also needs the static depth and the
-    aquifer thickness (Lw = zone bottom depth - static depth). The fit, method and geometry are kept in the
-    K test's ``attrs``; repeat tests of a zone whose K differ by more than 25 % are flagged ``repeat_disagree``.
-    A geometry row without ``tested_on`` gets the date of the reduction, said in ``attrs``.
-    K is reported (columns ``k``, ``k_unit``) and stored in the store's K unit (ft/d in a feet store, m/d in
-    a metre store), with ``k_ms`` in m/s beside it.
-    """
-    import json
-    from datetime import date
-
-    from .. import slug
-    from ..quantities import LENGTH_UNITS, k_from_ms
-
-    if method not in SLUG_METHODS:
-        raise ParameterError(f"unknown slug-test method {method!r}; expected one of {', '.join(SLUG_METHODS)}")
-    rec = store.read("slug_records")
-    geo = store.read("slug_geometry")
-    if rec.empty:
-        raise InsufficientDataError("the store has no slug-test records; import them with "
-                                    "'hydroatlas import STORE slugtests FILE'")
-    zones = store.read("zones", ["well_id", "zone_id", "bottom_depth"]).set_index(["well_id", "zone_id"])
-    to_m = LENGTH_UNITS[store.settings.length_unit]
-    geo = geo.set_index(["well_id", "zone_id", "test_id"])
-    rows = []
-    for key, g in rec.groupby(["well_id", "zone_id", "test_id"], sort=True):
-        row = {"well_id": key[0], "zone_id": key[1], "test_id": key[2], "method": method, "k_ms": np.nan,
-               "problem": None}
-        if key not in geo.index:
-            row["problem"] = "no geometry (import a sluggeometry file)"
-            rows.append(row)
-            continue
-        gm = geo.loc[key]
-        try:
-            if method == "hvorslev":
-                res = slug.hvorslev_k(g["t_s"].to_numpy(float), g["displacement"].to_numpy(float),
-                                      casing_radius=gm["casing_radius"], screen_length=gm["screen_length"],
-                                      well_radius=gm["well_radius"])
-            else:
-                if not (np.isfinite(gm["static_depth"]) and np.isfinite(gm["aquifer_thickness"])):
-                    raise InsufficientDataError("Bouwer and Rice needs static_depth and aquifer_thickness")
-                lw = float(zones.loc[(key[0], key[1]), "bottom_depth"]) - float(gm["static_depth"])
-                res = slug.bouwer_rice_k(g["t_s"].to_numpy(float), g["displacement"].to_numpy(float),
-                                         casing_radius=gm["casing_radius"], well_radius=gm["well_radius"],
-                                         screen_length=gm["screen_length"], lw=lw,
-                                         aquifer_thickness=gm["aquifer_thickness"])
-        except (InsufficientDataError, ParameterError) as exc:
-            row["problem"] = str(exc)
-            rows.append(row)
-            continue
-        row["k_ms"] = res["k"] * to_m  # lengths in the store unit, time in s
-        row["r2"] = res["fit"]["r2"]
-        row["tested_on"] = gm["tested_on"]
-        row["attrs"] = json.dumps({"fit": res["fit"], "method": res["method"],
-                                   "geometry": {c: (None if pd.isna(gm[c]) else float(gm[c])) for c in
-                                                ("casing_radius", "well_radius", "screen_length",
-                                                 "aquifer_thickness", "static_depth")},
-                                   "length_unit": store.settings.length_unit,
-                                   **({"tested_on_unknown": True} if pd.isna(gm["tested_on"]) else {})})
-        rows.append(row)
-    out = pd.DataFrame(rows)
-    # reported and stored in the store's K unit (its length unit per day); k_ms (m/s) kept beside it
-    k_unit = store_k_unit(store)
-    out["k"] = k_from_ms(out["k_ms"].to_numpy(float), k_unit)
-    out["k_unit"] = k_unit
-    out["repeat_disagree"] = False
-    ok = out["k_ms"].notna()
-    for _, g in out[ok].groupby(["well_id", "zone_id"]):
-        cmp = slug.compare_repeats(g["k_ms"].to_numpy(float))
-        out.loc[g.index, "repeat_disagree"] = cmp["disagree"]
-    if write and ok.any():
-        good = out[ok]
-        frame = pd.DataFrame({
-            "well_id": good["well_id"], "zone_id": good["zone_id"],
-            "test_id": "slug:" + good["test_id"].astype(str) + ":" + method,
-            "tested_on": good["tested_on"].where(good["tested_on"].notna(), date.today().isoformat()),
-            "method": "slug", "k": good["k"], "k_unit": k_unit, "k_ms": good["k_ms"],
-            "quality": np.where(good["repeat_disagree"], "fair", "good"),
-            "source": f"hydroatlas slug reduction ({method})", "attrs": good["attrs"],
-            "source_file": "slug reduction", "source_row": np.arange(1, len(good) + 1)})
-        with store.transaction():
-            store.upsert("ktests", frame)
-    return out
