@@ -7,7 +7,8 @@ spring in an incised valley, a sinkhole-plain recharge area, 40 wells (six of
 them multi-zone), four pumping wells and three years of monthly heads. No
 place, well, spring or value here comes from a real site.
 
-Run ``python demo_region/generate.py [OUTDIR]``; it writes into this folder by default.
+Run ``python demo_region/generate.py [OUTDIR]``; by default it writes into hydroatlas/demo_data/, the package
+data that ``hydroatlas demo`` reads (so the demo also runs from an installed wheel).
 """
 
 from __future__ import annotations
@@ -403,7 +404,8 @@ def _write_areas(path: Path):
 
 
 if __name__ == "__main__":
-    target = Path(sys.argv[1]) if len(sys.argv) > 1 else Path(__file__).resolve().parent
+    target = (Path(sys.argv[1]) if len(sys.argv) > 1
+              else Path(__file__).resolve().parent.parent / "hydroatlas" / "demo_data")
     counts = build(target)
     known = counts.pop("known slug K")
     print(", ".join(f"{k}: {v}" for k, v in counts.items()))

@@ -6,6 +6,7 @@ Exit codes: 0 success, 2 bad usage or bad input (one-line message on stderr),
 
 from __future__ import annotations
 
+import importlib
 import json
 import math
 import sys
@@ -13,15 +14,50 @@ import traceback
 from contextlib import contextmanager
 
 import click
-import pandas as pd
 
-from . import workflows
 from .errors import HydroatlasError, ParameterError
-from .heads import TimeWindow, parse_instant
-from .quantities import CANONICAL as CANONICAL_UNITS, convert
-from .stats import PER_CHOICES
-from .store import open_store
-from .store.importers import KINDS
+
+
+# -- start-up: `hydroatlas --help` loads click and this module only ----------------------------------------------
+# pandas, numpy, numba, scipy, the GIS and plotting libraries and the workflows are imported on first use, inside
+# the commands (tests/test_startup.py checks sys.modules after --help).
+class _OnFirstUse:
+    """A module imported on first attribute access; attributes are looked up on the module every time, so a test
+    that monkeypatches the module itself is seen here too."""
+
+    def __init__(self, name: str):
+        self._name = name
+
+    def __getattr__(self, attr):
+        return getattr(importlib.import_module(self._name), attr)
+
+
+pd = _OnFirstUse("pandas")
+workflows = _OnFirstUse("hydroatlas.workflows")
+
+
+def open_store(path_or_url):
+    """:func:`hydroatlas.store.open_store`, imported when a command opens a store."""
+    from .store import open_store as _open
+
+    return _open(path_or_url)
+
+
+def convert(*args, **kwargs):
+    """:func:`hydroatlas.quantities.convert`, imported on first use."""
+    from .quantities import convert as _convert
+
+    return _convert(*args, **kwargs)
+
+
+# Choices shown by --help, written here so that --help imports no library module; tests/test_startup.py checks
+# that each equals the library's own tuple (hydroatlas.store.importers.KINDS and so on).
+KINDS = ("units", "wells", "picks", "zones", "ktests", "heads", "pumping", "springs", "discharge", "areas",
+         "slugtests", "sluggeometry", "transducer")
+PER_CHOICES = ("test", "zone", "well")
+SURFACE_QUANTITIES = ("head", "logk", "dhead")
+SURFACE_METHODS = ("kriging", "uk", "idw")
+SLUG_METHODS = ("auto", "hvorslev", "bouwer-rice", "cbp", "oscillating")
 
 CAUTION = ("Results are screening-level estimates for planning and model set-up, not a substitute for "
            "site-specific investigation or for the judgement of a licensed professional geoscientist or "
@@ -174,11 +210,11 @@ class UnitName(click.ParamType):
 
 def _in_units(value, quantity: str, unit: str, *, default_unit: str):
     """An option value of :class:`Quantity` (or a plain number) in ``unit``; a bare number is in ``default_unit``."""
-    from .quantities import convert, parse_quantity
+    from .quantities import CANONICAL, convert, parse_quantity
 
     if value is None:
         return None
-    return convert(parse_quantity(value, quantity, default_unit=default_unit), CANONICAL_UNITS[quantity], unit,
+    return convert(parse_quantity(value, quantity, default_unit=default_unit), CANONICAL[quantity], unit,
                    quantity)
 
 
@@ -248,6 +284,8 @@ class _Checked(click.ParamType):
 def _window_value(ctx, param, value):
     """Click callback: an ISO 8601 interval FROM/TO, each end at least YYYY-MM-DD."""
     if value is not None:
+        from .heads import TimeWindow
+
         try:
             TimeWindow.parse(value, name=_option_label(param))
         except ParameterError as exc:
@@ -258,6 +296,8 @@ def _window_value(ctx, param, value):
 def _date_value(ctx, param, value):
     """Click callback: an ISO 8601 date or date-time, at least YYYY-MM-DD."""
     if value is not None:
+        from .heads import parse_instant
+
         try:
             parse_instant(value, name=_option_label(param))
         except ParameterError as exc:
@@ -327,7 +367,34 @@ def _say_selection(selection: dict | None, only: str | None = None) -> None:
 
     entries = [e for e in (selection or {}).get("left_out") or [] if only is None or e["what"] == only]
     for level, text in describe(entries):
-        click.echo(f"{level}: {text}", err=True)
+        if level == "note":
+            _note(text)
+        else:
+            click.echo(f"{level}: {text}", err=True)
+    for e in entries:  # -v: each well and zone behind the counts above
+        zone = f" zone {e['zone_id']}" if e.get("zone_id") else ""
+        _detail(f"{e['what']} left out at well {e['well_id']}{zone}: {e['reason']} ({e['count']})")
+
+
+# -- -q/--quiet and -v/--verbose of the main group -----------------------------------------------------------------
+def _verbosity() -> int:
+    """-1 with --quiet, 1 with --verbose, 0 otherwise (also outside a command, as when a test calls a helper)."""
+    ctx = click.get_current_context(silent=True)
+    root = ctx.find_root() if ctx is not None else None
+    obj = root.obj if root is not None and isinstance(root.obj, dict) else {}
+    return int(obj.get("verbosity", 0))
+
+
+def _note(text: str, *, err: bool = True) -> None:
+    """A note ("note: ...", stderr by default); --quiet silences it. Warnings and cautions are not notes."""
+    if _verbosity() >= 0:
+        click.echo(f"note: {text}", err=err)
+
+
+def _detail(text: str) -> None:
+    """More detail behind a note, on stderr, with --verbose only."""
+    if _verbosity() > 0:
+        click.echo(f"detail: {text}", err=True)
 
 
 class _Group(click.Group):
@@ -352,16 +419,23 @@ class _Group(click.Group):
 
 
 @click.group(cls=_Group)
+@click.option("-q", "--quiet", is_flag=True,
+              help="No notes and no progress bars (results, warnings, cautions and errors still show).")
+@click.option("-v", "--verbose", is_flag=True,
+              help="More detail on stderr where there is some (e.g. each well and zone a selection left out).")
 @click.option("--debug", is_flag=True, help="Show tracebacks on errors.")
 @click.version_option(package_name="hydroatlas")
 @click.pass_context
-def main(ctx, debug):
+def main(ctx, quiet, verbose, debug):
     """hydroatlas: a spatial store and mapper of hydrostratigraphic properties.
 
     The store (a GeoPackage file) is the first argument of every command.
     """
+    if quiet and verbose:
+        raise _OptionError("-q/--quiet and -v/--verbose exclude each other: give one")
     ctx.ensure_object(dict)
     ctx.obj["debug"] = debug
+    ctx.obj["verbosity"] = -1 if quiet else (1 if verbose else 0)
 
 
 def _json_safe(value):
@@ -391,7 +465,7 @@ def _progress(label, unit=" rows"):
     """A progress bar on a terminal; silent when stderr is not a terminal."""
     from tqdm import tqdm
 
-    return tqdm(desc=label, unit=unit, disable=not sys.stderr.isatty(), leave=False)
+    return tqdm(desc=label, unit=unit, disable=not sys.stderr.isatty() or _verbosity() < 0, leave=False)
 
 
 @contextmanager
@@ -448,20 +522,24 @@ def import_(store, kind, file, input_crs, clear_empty):
             bar.close()
     click.echo(report.summary())
     for note in report.notes:
-        click.echo(f"note: {note}")
+        _note(note, err=False)
 
 
 @main.command()
 @click.argument("store")
-@click.option("--json", "as_json", is_flag=True, help="Print the findings as JSON.")
-def check(store, as_json):
+@click.option("--format", "fmt", type=_FORMATS, default=None, help="table (default), csv or json.")
+@click.option("--json", "as_json", is_flag=True, help="The same as --format json (the older spelling).")
+def check(store, fmt, as_json):
     """Report data-quality findings: straddling zones, pick gaps and overlaps,
     wells without picks, orphans, K outliers and heads far outside their unit's range."""
+    if as_json and fmt not in (None, "json"):
+        raise _OptionError(f"--json is the same as --format json; it cannot go with --format {fmt}")
+    fmt = "json" if as_json else (fmt or "table")
     with open_store(store) as s:
         findings = workflows.check_store(s)
     frame = pd.DataFrame(findings, columns=["kind", "severity", "well_id", "zone_id", "unit", "message"])
-    if as_json:
-        _emit(frame, "json", findings)
+    if fmt != "table":
+        _emit(frame, fmt, findings)
     else:
         _emit(frame, "table")
         counts = frame["kind"].value_counts()
@@ -553,10 +631,10 @@ def verticals(store, window, at, tolerance, profiles, fmt, include_poor, include
 @main.command()
 @click.argument("store")
 @click.option("--unit", required=True, help="Unit code.")
-@click.option("--quantity", type=click.Choice(workflows.QUANTITIES), default="head", show_default=True,
+@click.option("--quantity", type=click.Choice(SURFACE_QUANTITIES), default="head", show_default=True,
               help="head, logk (log10 K in the store's K unit: ft/d or m/d) or dhead (head minus the head of "
                    "the unit below).")
-@click.option("--method", type=click.Choice(workflows.METHODS), default="kriging", show_default=True,
+@click.option("--method", type=click.Choice(SURFACE_METHODS), default="kriging", show_default=True,
               help="kriging (ordinary), uk (universal, linear drift) or idw.")
 @click.option("--window", default=None, callback=_window_value,
               help="ISO 8601 interval FROM/TO for heads (median per zone).")
@@ -577,15 +655,19 @@ def verticals(store, window, at, tolerance, profiles, fmt, include_poor, include
               help="Mask distance around the data when no domain polygon (CRS units, or a length with its unit).")
 @click.option("--fallback-idw", is_flag=True, help="Use IDW when no variogram can be fitted (all values equal).")
 @click.option("--max-cells", type=COUNT, default=None, help="Refuse grids larger than this (default 50,000,000).")
+@click.option("--compare-methods", is_flag=True,
+              help="Cross-validate kriging, uk and idw (leave-one-out) and record all three; default: only --method.")
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False), help="Output folder.")
 @selection_options
 def surface(store, unit, quantity, method, window, at, tolerance, cell, variogram, nugget, sill, range_, neighbors,
-            lower_unit, buffer, fallback_idw, max_cells, out, include_poor, include_pumping_wells, exclude_wells):
+            lower_unit, buffer, fallback_idw, max_cells, compare_methods, out, include_poor, include_pumping_wells,
+            exclude_wells):
     """Interpolate head, log K or head difference of one unit onto a grid.
 
     Writes OUT/<unit>_<quantity>.tif (band 1 estimate, band 2 kriging standard
     deviation), OUT/<unit>_<quantity>.json (method, variogram, neighbourhood,
-    leave-one-out cross-validation of every method, window) and, for heads,
+    leave-one-out cross-validation of the method, or of every method with
+    --compare-methods, window) and, for heads,
     OUT/<unit>_gradient.tif and the flow_arrows layer of OUT/layers.gpkg.
     The grid covers the domain polygon (areas of kind domain) or the data.
 
@@ -604,7 +686,8 @@ def surface(store, unit, quantity, method, window, at, tolerance, cell, variogra
                                          buffer=_in_crs_units(buffer, s), out=out,
                                          fallback_idw=fallback_idw, max_cells=max_cells, lower_unit=lower_unit,
                                          progress=bar.update, tolerance_days=_tolerance_days(tolerance),
-                                         policy=_policy(include_poor, include_pumping_wells, exclude_wells))
+                                         policy=_policy(include_poor, include_pumping_wells, exclude_wells),
+                                         compare_methods=compare_methods)
     _say_selection(result.get("selection"))
     cv = result["cross_validation"].get(result["selected_method"], {})
     click.echo(f"{unit} {quantity} by {result['selected_method']} from {result['n_points']} wells; "
@@ -1015,7 +1098,7 @@ def grid(store, cell, origin, shape, rotation, layers, kv_ratio, k_source, min_t
 
 @main.command()
 @click.argument("store")
-@click.option("--method", type=click.Choice(workflows.SLUG_METHODS), default="auto", show_default=True,
+@click.option("--method", type=click.Choice(SLUG_METHODS), default="auto", show_default=True,
               help="auto: the method the response and geometry call for, with the reason shown.")
 @click.option("--no-write", is_flag=True, help="Only report; do not store the K values as K tests.")
 @click.option("--figures", "figures_dir", default=None, type=click.Path(file_okay=False),

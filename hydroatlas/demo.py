@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import runpy
+from importlib import resources
 from pathlib import Path
 from typing import Callable
 
@@ -17,21 +18,41 @@ IMPORT_ORDER = ("units", "wells", "picks", "zones", "ktests", "heads", "pumping"
                 "slugtests", "sluggeometry")
 _FILES = {kind: f"{kind}.csv" for kind in IMPORT_ORDER}
 _FILES["areas"] = "areas.geojson"
+#: every file the demo reads, shipped as package data (hydroatlas/demo_data, written by demo_region/generate.py)
+REGION_FILES = tuple(_FILES.values()) + ("crs.txt",)
+DEMO_DATA = "demo_data"
 
 
 def demo_region_dir() -> Path:
-    """The committed demo_region folder of the source tree."""
+    """The demo_region folder of the source tree (generator and README; absent from an installed wheel)."""
     return Path(__file__).resolve().parent.parent / "demo_region"
 
 
+def demo_data():
+    """The packaged input files of the demo region, as an importlib.resources Traversable."""
+    return resources.files("hydroatlas").joinpath(DEMO_DATA)
+
+
 def ensure_region_files(target: Path) -> Path:
-    """Input files of the demo region: the committed ones, or freshly generated into ``target``."""
-    src = demo_region_dir()
-    if all((src / f).is_file() for f in _FILES.values()):
-        return src
-    generator = src / "generate.py"
+    """A folder holding the demo region's input files.
+
+    The package data when complete (found through importlib.resources, so an installed wheel works; copied into
+    ``target`` when the package is not a plain folder, e.g. zipped), else freshly generated into ``target`` by
+    demo_region/generate.py of a source tree.
+    """
+    data = demo_data()
+    if all(data.joinpath(f).is_file() for f in REGION_FILES):
+        if isinstance(data, Path):
+            return data
+        target.mkdir(parents=True, exist_ok=True)
+        for name in REGION_FILES:
+            (target / name).write_bytes(data.joinpath(name).read_bytes())
+        return target
+    generator = demo_region_dir() / "generate.py"
     if not generator.is_file():
-        raise FileNotFoundError("demo_region/generate.py is missing from the source tree")
+        missing = [f for f in REGION_FILES if not data.joinpath(f).is_file()]
+        raise FileNotFoundError(f"the demo region's files are missing from the package ({', '.join(missing)}) "
+                                "and there is no demo_region/generate.py to make them; reinstall hydroatlas")
     target.mkdir(parents=True, exist_ok=True)
     runpy.run_path(str(generator))["build"](target)
     return target

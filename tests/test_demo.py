@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from hydroatlas import open_store
-from hydroatlas.demo import demo_region_dir
+from hydroatlas.demo import REGION_FILES, demo_data, demo_region_dir
 from hydroatlas import workflows
 
 from conftest import cli
@@ -36,10 +36,73 @@ def demo_store(tmp_path_factory):
 
 
 def test_generator_is_reproducible(tmp_path):
-    """The committed files are exactly what the committed generator writes with its fixed seed."""
+    """The committed files (package data) are exactly what the committed generator writes with its fixed seed."""
     runpy.run_path(str(demo_region_dir() / "generate.py"))["build"](tmp_path)
-    for name in sorted(p.name for p in tmp_path.iterdir()):
-        assert filecmp.cmp(tmp_path / name, demo_region_dir() / name, shallow=False), name
+    written = sorted(p.name for p in tmp_path.iterdir())
+    assert set(REGION_FILES) <= set(written)
+    assert written == sorted(p.name for p in demo_data().iterdir())  # nothing stale beside them
+    for name in written:
+        assert filecmp.cmp(tmp_path / name, demo_data() / name, shallow=False), name
+
+
+def test_generator_writes_the_package_data_by_default():
+    source = (demo_region_dir() / "generate.py").read_text()
+    assert 'Path(__file__).resolve().parent.parent / "hydroatlas" / "demo_data"' in source
+
+
+@pytest.mark.slow
+def test_demo_data_ship_in_the_wheel_and_are_found_without_the_source_tree(tmp_path):
+    """Build a wheel from a copy of the project, check its file list, unpack it away from the source tree and let
+    hydroatlas.demo find its region there through importlib.resources and import every file into a store."""
+    import shutil
+    import subprocess
+    import sys
+    import textwrap
+    import zipfile
+
+    from conftest import require_all
+
+    root = demo_region_dir().parent
+    src = tmp_path / "src"
+    src.mkdir()
+    for name in ("pyproject.toml", "README.md"):
+        shutil.copy2(root / name, src / name)
+    shutil.copytree(root / "hydroatlas", src / "hydroatlas", ignore=shutil.ignore_patterns("__pycache__", "*.nb*"))
+    build = subprocess.run([sys.executable, "-m", "pip", "wheel", str(src), "--no-deps", "-q", "-w",
+                            str(tmp_path / "dist")], capture_output=True, text=True, timeout=300)
+    if build.returncode != 0 and "No matching distribution" in build.stderr and not require_all():
+        pytest.skip("no build backend reachable to build a wheel: " + build.stderr.strip().splitlines()[-1])
+    assert build.returncode == 0, build.stderr
+    (wheel,) = (tmp_path / "dist").glob("hydroatlas-*.whl")
+    with zipfile.ZipFile(wheel) as zf:
+        names = set(zf.namelist())
+        for name in REGION_FILES:
+            assert f"hydroatlas/demo_data/{name}" in names, name
+            assert zf.read(f"hydroatlas/demo_data/{name}") == demo_data().joinpath(name).read_bytes(), name
+        assert "hydroatlas/export/vendor/leaflet/leaflet.js" in names
+        zf.extractall(tmp_path / "site")
+    code = textwrap.dedent(f"""
+        import sys
+        sys.path.insert(0, {str(tmp_path / "site")!r})
+        from pathlib import Path
+        import hydroatlas.demo as demo
+        assert demo.__file__.startswith({str(tmp_path / "site")!r}), demo.__file__
+        assert not (demo.demo_region_dir() / "generate.py").exists()   # no source tree to fall back on
+        region = demo.ensure_region_files(Path({str(tmp_path / "made")!r}))
+        assert region == Path(demo.__file__).parent / "demo_data", region
+        store = demo.workflows.init_store({str(tmp_path / "w.gpkg")!r}, crs=(region / "crs.txt").read_text().strip())
+        try:
+            for kind in demo.IMPORT_ORDER:
+                print(demo.workflows.import_data(store, kind, region / demo._FILES[kind]).summary())
+        finally:
+            store.close()
+        """)
+    run = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=300, cwd=tmp_path)
+    assert run.returncode == 0, run.stderr
+    assert not (tmp_path / "made").exists()  # the packaged files were used, nothing was generated
+    with open_store(tmp_path / "w.gpkg") as s:
+        assert len(s.read("wells")) == 40  # the demo region's 40 wells (demo_region/generate.py)
+        assert len(s.read("units")) == 5
 
 
 def test_demo_outputs(demo_store):

@@ -23,7 +23,7 @@ from scipy import optimize
 from scipy.spatial.distance import cdist
 
 from hydroatlas.errors import InsufficientDataError, NotFittedError, ParameterError
-from hydroatlas.interp import IDW, OrdinaryKriging, UniversalKriging, Variogram
+from hydroatlas.interp import IDW, Interpolator, OrdinaryKriging, UniversalKriging, Variogram
 
 from conftest import require_all
 
@@ -375,6 +375,43 @@ class TestInterpolatorContract:
         est = factory()
         xy, z = contract_data()
         assert est.fit(xy, z) is est
+
+    def test_declares_min_points_and_std(self, estimator):
+        """`min_points` is the fewest points fit accepts; `has_std` says whether a real std comes back."""
+        _, factory, needed, is_kriging = estimator
+        model = factory()
+        assert isinstance(model, Interpolator)
+        assert model.min_points == needed
+        assert model.has_std is is_kriging
+
+    def test_predict_with_std_on_every_interpolator(self, estimator):
+        """Every interpolator answers return_std=True with (estimate, std); IDW's std is NaN by its documented
+        rule (no estimation variance), kriging's is finite and >= 0."""
+        _, factory, _, is_kriging = estimator
+        xy, z = contract_data()
+        model = factory().fit(xy, z)
+        q = np.random.default_rng(8).uniform(0.0, 100.0, (25, 2))
+        est, std = model.predict(q, return_std=True)
+        np.testing.assert_array_equal(est, model.predict(q))
+        assert std.shape == est.shape
+        if is_kriging:
+            assert np.isfinite(std).all() and (std >= 0).all()
+        else:
+            assert np.isnan(std).all()
+        with pytest.raises(TypeError):
+            model.predict(q, True)  # return_std is keyword-only
+
+    def test_clone_keeps_parameters_not_data(self, estimator):
+        _, factory, _, _ = estimator
+        xy, z = contract_data()
+        model = factory().fit(xy, z)
+        twin = model.clone()
+        assert type(twin) is type(model) and twin is not model
+        assert twin._params() == model._params()
+        with pytest.raises(NotFittedError):
+            twin.predict(xy[:3])
+        q = np.random.default_rng(9).uniform(0.0, 100.0, (20, 2))
+        np.testing.assert_array_equal(twin.fit(xy, z).predict(q), model.predict(q))
 
     def test_exact_at_data_points(self, estimator):
         """With zero nugget every interpolator returns the data at the data locations (kriging variance 0)."""
@@ -806,3 +843,40 @@ def test_anisotropy_distances(model):
     # isotropic: the coordinates are unchanged
     pts = np.array([[1.0, 2.0], [3.0, -4.0]])
     np.testing.assert_array_equal(iso.to_isotropic(pts), pts)
+
+
+# ---------------------------------------------------------------- tiles in a process pool
+@pytest.mark.parametrize("factory", [lambda: OrdinaryKriging(CONTRACT_VARIO, neighbors=8),
+                                     lambda: UniversalKriging(CONTRACT_VARIO, neighbors=None),
+                                     lambda: IDW(2.0, neighbors=8)], ids=["ok-local", "uk-global", "idw-local"])
+def test_predict_grid_in_two_processes_matches_one(factory):
+    """common practice (no source): the tile function is pure, so a spawned process pool gives the answer of
+    one process (numba's threading layer does not survive a fork: the pool must spawn)."""
+    from hydroatlas.interp.grid import GridSpec, predict_grid
+
+    xy, z = contract_data()
+    model = factory().fit(xy, z)
+    grid = GridSpec(-5.0, 105.0, 2.5, 44, 44)
+    mask = np.ones(grid.shape, bool)
+    mask[:5, :7] = False
+    # a small budget gives many tiles, so both workers get several
+    one = predict_grid(model, grid, mask=mask, workers=1, budget_bytes=44 * 400 * 6)
+    ticks = []
+    two = predict_grid(model, grid, mask=mask, workers=2, budget_bytes=44 * 400 * 6, progress=ticks.append)
+    assert sum(ticks) == grid.nrows and len(ticks) == 8
+    np.testing.assert_allclose(two[0], one[0], rtol=0, atol=1e-12)
+    assert np.isnan(two[0][:5, :7]).all() and np.isfinite(two[0][5:]).all()
+    if model.has_std:
+        np.testing.assert_allclose(two[1], one[1], rtol=0, atol=1e-12)
+    else:
+        assert one[1] is None and two[1] is None
+
+
+@pytest.mark.parametrize("workers", [0, -1, 1.5, True])
+def test_predict_grid_refuses_bad_workers(workers):
+    from hydroatlas.interp.grid import GridSpec, predict_grid
+
+    xy, z = contract_data()
+    model = IDW(2.0).fit(xy, z)
+    with pytest.raises(ParameterError, match="workers must be a whole number >= 1"):
+        predict_grid(model, GridSpec(0.0, 100.0, 10.0, 10, 10), workers=workers)

@@ -54,7 +54,8 @@ def test_uk_surface_reproduces_plane(plane_store, tmp_path, runner):
     """Analytic: universal kriging with a linear drift reproduces a planar head field (any variogram)."""
     out = tmp_path / "out"
     res = cli(runner, "surface", plane_store, "--unit", "AQ", "--method", "uk", "--window", "2024-03-01/2024-03-31",
-              "--cell", 100, "--variogram", "exponential", "--sill", 1.0, "--range", 2000, "--out", out)
+              "--cell", 100, "--variogram", "exponential", "--sill", 1.0, "--range", 2000, "--out", out,
+              "--compare-methods")
     assert res.exit_code == 0, res.output
     with rasterio.open(out / "AQ_head.tif") as r:
         assert r.count == 2 and r.nodata == -9999.0

@@ -11,20 +11,19 @@ in greyscale.
 
 from __future__ import annotations
 
+import math
+from pathlib import Path
+
 import matplotlib
+import matplotlib.ticker
+import numpy as np
+import pandas as pd
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+from matplotlib.patches import Patch
 
-matplotlib.use("Agg")
-
-import math  # noqa: E402
-from pathlib import Path  # noqa: E402
-
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-from matplotlib.patches import Patch  # noqa: E402
-
-from ..errors import ParameterError  # noqa: E402
-from .names import atomic_path  # noqa: E402
+from ..errors import ParameterError
+from .names import atomic_path
 
 FOOTER = "Screening-level estimate; see the cautions in the README."
 DPI = 150
@@ -58,16 +57,17 @@ def _write(fig, stem) -> list[Path]:
 
 
 def _render(stem, draw, *, figsize) -> list[Path]:
-    """Create a figure, let ``draw(fig, ax)`` fill it, add the footer, write PNG + SVG, always close it."""
+    """Create a figure, let ``draw(fig, ax)`` fill it, add the footer, write PNG + SVG."""
     with matplotlib.rc_context(_RC):
-        fig, ax = plt.subplots(figsize=figsize, layout="constrained")
-        try:
-            fig.get_layout_engine().set(rect=(0, 0.035, 1, 0.965))
-            draw(fig, ax)
-            fig.text(0.01, 0.01, FOOTER, fontsize=7, color="#555555", ha="left", va="bottom")
-            return _write(fig, stem)
-        finally:
-            plt.close(fig)
+        # a figure of our own on the Agg canvas: neither pyplot's figure registry nor the user's backend is touched
+        fig = Figure(figsize=figsize, layout="constrained")
+        FigureCanvasAgg(fig)
+        # (so nothing needs closing: the figure is freed with its last reference, also when drawing fails)
+        ax = fig.add_subplot()
+        fig.get_layout_engine().set(rect=(0, 0.035, 1, 0.965))
+        draw(fig, ax)
+        fig.text(0.01, 0.01, FOOTER, fontsize=7, color="#555555", ha="left", va="bottom")
+        return _write(fig, stem)
 
 
 def _require_columns(df, columns, name: str) -> pd.DataFrame:

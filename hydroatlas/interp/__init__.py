@@ -3,8 +3,9 @@
 >>> from hydroatlas.interp import Variogram, OrdinaryKriging, UniversalKriging, IDW
 """
 
+from .base import Interpolator
 from .idw import IDW
 from .kriging import OrdinaryKriging, UniversalKriging
 from .variogram import ExperimentalVariogram, Variogram
 
-__all__ = ["IDW", "OrdinaryKriging", "UniversalKriging", "Variogram", "ExperimentalVariogram"]
+__all__ = ["Interpolator", "IDW", "OrdinaryKriging", "UniversalKriging", "Variogram", "ExperimentalVariogram"]

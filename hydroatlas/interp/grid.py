@@ -9,6 +9,7 @@ process pool (or a Dask cluster) can run unchanged.
 from __future__ import annotations
 
 import math
+import multiprocessing
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
 
@@ -210,10 +211,17 @@ def predict_grid(model, grid: GridSpec, *, mask=None, return_std: bool = True, w
     """Predict over the whole grid tile by tile; ``workers`` > 1 runs tiles in a process pool.
 
     Returns (estimate, std) arrays of the grid's shape (std None when not asked or
-    not available); cells outside ``mask`` are NaN.
+    the model has no std, ``model.has_std`` False); cells outside ``mask`` are NaN.
+
+    The pool starts its processes by spawning fresh interpreters: numba's threading
+    layer does not survive a fork of a process that has already used it. Each task is
+    the module-level pure :func:`predict_tile` with a pickled model, so a Dask cluster
+    can run the same tasks.
     """
+    if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
+        raise ParameterError(f"workers must be a whole number >= 1; got {workers!r}")
     rows = rows_per_tile(grid, budget_bytes)
-    has_std = return_std and not model.__class__.__name__ == "IDW"
+    has_std = bool(return_std and getattr(model, "has_std", False))
     est = np.full(grid.shape, np.nan)
     std = np.full(grid.shape, np.nan) if has_std else None
     jobs = [(r0, min(grid.nrows, r0 + rows)) for r0 in range(0, grid.nrows, rows)]
@@ -222,7 +230,8 @@ def predict_grid(model, grid: GridSpec, *, mask=None, return_std: bool = True, w
         return None if mask is None else mask[r0:r1]
 
     if workers > 1 and len(jobs) > 1:
-        with ProcessPoolExecutor(max_workers=workers) as pool:
+        with ProcessPoolExecutor(max_workers=min(int(workers), len(jobs)),
+                                 mp_context=multiprocessing.get_context("spawn")) as pool:
             futures = [(r0, r1, pool.submit(predict_tile, model, grid, r0, r1, tile_mask(r0, r1), has_std))
                        for r0, r1 in jobs]
             for r0, r1, fut in futures:

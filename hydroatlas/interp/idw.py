@@ -7,10 +7,15 @@ from scipy.spatial import cKDTree
 
 from ..errors import NotFittedError, ParameterError
 from ._validate import as_points, as_values, merge_duplicates, require_points
+from .base import Interpolator
 
 
-class IDW:
+class IDW(Interpolator):
     """Inverse-distance-weighted interpolation, exact at the data points.
+
+    IDW has no estimation variance: ``predict(..., return_std=True)`` returns a
+    std of NaN at every target (``has_std`` is False), so callers can treat every
+    interpolator alike and still see that no spread is available.
 
     Parameters
     ----------
@@ -23,10 +28,17 @@ class IDW:
         (an estimate with no point in the radius is NaN).
     """
 
+    min_points = 1
+    has_std = False
+    name = "idw"
+
     def __init__(self, power: float = 2.0, *, neighbors: int | None = 16, radius: float | None = None):
         self.power = power
         self.neighbors = neighbors
         self.radius = radius
+
+    def _params(self) -> dict:
+        return {"power": self.power, "neighbors": self.neighbors, "radius": self.radius}
 
     def _check_params(self):
         if not (isinstance(self.power, (int, float)) and self.power > 0):
@@ -43,7 +55,7 @@ class IDW:
         xy = as_points(xy)
         z = as_values(z, len(xy))
         xy, z = merge_duplicates(xy, z, "IDW")
-        require_points(len(xy), 1, "IDW")
+        require_points(len(xy), self.min_points, "IDW")
         self.xy_, self.z_ = xy, z
         self.tree_ = cKDTree(xy)
         k = len(xy) if self.neighbors is None else min(self.neighbors, len(xy))
@@ -58,13 +70,18 @@ class IDW:
             self.tile_width_ = tile_width(xy, k)
         return self
 
-    def predict(self, xy_new, *, chunk: int = 200_000) -> np.ndarray:
-        """Estimates at ``xy_new`` (shape (m, 2)); evaluated in chunks to bound memory."""
+    def predict(self, xy_new, *, return_std: bool = False, chunk: int = 200_000):
+        """Estimates at ``xy_new`` (shape (m, 2)); evaluated in chunks to bound memory.
+
+        With ``return_std`` returns (estimate, std) where std is NaN everywhere (IDW has no variance).
+        """
         if not hasattr(self, "tree_"):
             raise NotFittedError("IDW.predict called before fit")
         pts = as_points(xy_new, "xy_new")
-        if hasattr(self, "buckets_"):
-            return self._predict_local(pts, chunk)
+        est = self._predict_local(pts, chunk) if hasattr(self, "buckets_") else self._predict_tree(pts, chunk)
+        return (est, self._no_std(est)) if return_std else est
+
+    def _predict_tree(self, pts, chunk):
         k = len(self.xy_) if self.neighbors is None else min(self.neighbors, len(self.xy_))
         out = np.empty(len(pts))
         bound = np.inf if self.radius is None else self.radius

@@ -22,6 +22,7 @@ from scipy.linalg import lu_factor, lu_solve
 from ..errors import InsufficientDataError, NotFittedError, ParameterError
 from . import _kernels
 from ._validate import as_points, as_values, merge_duplicates, require_points
+from .base import Interpolator
 from .variogram import Variogram
 
 # Targets per block of the local solver; bounds the memory of one block to a few tens of MB.
@@ -30,9 +31,10 @@ BLOCK_TARGETS = 65_536
 GLOBAL_CHUNK_BYTES = 64 * 2**20
 
 
-class _Kriging:
+class _Kriging(Interpolator):
     n_drift = 1
-    min_points = 1
+    min_points = 2
+    has_std = True
     name = "kriging"
 
     def __init__(self, variogram: Variogram, *, neighbors: int | None = 16, radius: float | None = None):
@@ -40,14 +42,17 @@ class _Kriging:
         self.neighbors = neighbors
         self.radius = radius
 
+    def _params(self) -> dict:
+        return {"variogram": self.variogram, "neighbors": self.neighbors, "radius": self.radius}
+
     def _check_params(self):
         owner = type(self).__name__
         if not isinstance(self.variogram, Variogram):
             raise ParameterError(f"The 'variogram' parameter of {owner} must be a Variogram. "
                                  f"Got {self.variogram!r} instead.")
         if self.neighbors is not None and not (isinstance(self.neighbors, (int, np.integer))
-                                               and self.neighbors >= self.min_points):
-            raise ParameterError(f"The 'neighbors' parameter of {owner} must be an int >= {self.min_points} "
+                                               and self.neighbors >= self.min_points_local):
+            raise ParameterError(f"The 'neighbors' parameter of {owner} must be an int >= {self.min_points_local} "
                                  f"or None. Got {self.neighbors!r} instead.")
         if self.radius is not None and not (isinstance(self.radius, numbers.Real) and self.radius > 0):
             raise ParameterError(f"The 'radius' parameter of {owner} must be a float > 0 or None. "
@@ -59,7 +64,7 @@ class _Kriging:
         xy = as_points(xy)
         z = as_values(z, len(xy))
         xy, z = merge_duplicates(xy, z, type(self).__name__)
-        require_points(len(xy), max(self.min_points, 2 if self.n_drift == 1 else 3), type(self).__name__)
+        require_points(len(xy), self.min_points, type(self).__name__)
         v = self.variogram
         self.xy_, self.z_ = xy, z
         self.iso_ = np.ascontiguousarray(v.to_isotropic(xy))
@@ -113,7 +118,7 @@ class _Kriging:
         self.alpha_global_ = lu_solve(self.lu_, rhs)
 
     # -- prediction ------------------------------------------------------------
-    def predict(self, xy_new, return_std: bool = False):
+    def predict(self, xy_new, *, return_std: bool = False):
         """Estimates at ``xy_new`` (shape (m, 2)); with ``return_std`` also the kriging standard deviation.
 
         Targets with fewer than the needed points inside the search radius get NaN.
@@ -164,6 +169,25 @@ class _Kriging:
         # first hash with another set by chance (odds about 2**-64) and is solved alone
         lone = enough & (hashes[:, 1] != hashes[first, 1][group])
         rep = np.ascontiguousarray(idx[first])
+        return self._solve_sets(q, iso, idx, count, group, rep, lone)
+
+    def _predict_sets(self, q, idx, count):
+        """Estimate and kriging variance at ``q`` (m, 2), each from its own given neighbour set.
+
+        ``idx`` (m, k) holds indices into the fitted data, valid entries first and -1 after
+        ``count`` (m,) of them. Used by leave-one-out, where every point's set is its k
+        nearest other points.
+        """
+        q = np.ascontiguousarray(q, dtype=float)
+        iso = np.ascontiguousarray(self.variogram.to_isotropic(q))
+        idx = np.ascontiguousarray(idx, dtype=np.int64)
+        count = np.ascontiguousarray(count, dtype=np.int64)
+        group = np.arange(len(q), dtype=np.int64)
+        return self._solve_sets(q, iso, idx, count, group, idx, np.zeros(len(q), bool))
+
+    def _solve_sets(self, q, iso, idx, count, group, rep, lone):
+        """Solve each distinct neighbour set (rows of ``rep``) once and apply it to its targets (``group``)."""
+        v = self.variogram
         if self.n_drift == 1:
             L, u1, s_, w, mhat, chol_ok = _kernels.build_cholesky_ok(rep, self.iso_, self.z_, v.code, v.nugget,
                                                                      v.partial_sill, v.range)

@@ -197,8 +197,12 @@ def build_surface(store: Store, unit: str, quantity: str, *, method: str = "krig
                   sill=None, range_=None, neighbors: int | str | None = "auto", buffer: float | None = None,
                   out=".", fallback_idw: bool = False, max_cells: int | None = None, workers: int = 1,
                   lower_unit: str | None = None, progress=None, policy: SelectionPolicy | None = None,
-                  tolerance_days: float = DEFAULT_TOLERANCE_DAYS, use_extent: bool = True) -> dict:
+                  tolerance_days: float = DEFAULT_TOLERANCE_DAYS, use_extent: bool = True,
+                  compare_methods: bool = False) -> dict:
     """Interpolate one quantity of one unit onto a grid and write GeoTIFF + JSON sidecar (+ gradients for heads).
+
+    The sidecar's ``cross_validation`` holds the leave-one-out figures of the method used, or of every
+    method (kriging, uk, idw) when ``compare_methods`` is True.
 
     Heads and K tests follow the selection policy (None: the default); the sidecar's ``selection`` says
     which policy and what it left out.
@@ -257,7 +261,7 @@ def build_surface(store: Store, unit: str, quantity: str, *, method: str = "krig
         mask = mask & inside_ext
     est, std = predict_grid(model, grid, mask=mask, workers=workers, progress=progress)
     cv = {}
-    for m_name in METHODS:
+    for m_name in (METHODS if compare_methods else (minfo["method"],)):
         try:
             alt = model if m_name == minfo["method"] else make_interpolator(
                 m_name, xy, z, variogram=variogram, nugget=nugget, sill=sill, range_=range_, neighbors=neighbors)[0]
