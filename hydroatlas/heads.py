@@ -106,7 +106,7 @@ def select_heads(heads: pd.DataFrame, *, window: TimeWindow | None = None, at: s
     if tolerance_days is not None and not (isinstance(tolerance_days, (int, float, np.number))
                                            and np.isfinite(tolerance_days) and tolerance_days >= 0):
         raise ParameterError(f"the tolerance must be a number of days >= 0 and finite (got {tolerance_days})")
-    h = heads[["well_id", "zone_id", "measured_at", "head"]].copy()
+    h = heads[["well_id", "zone_id", "measured_at", "head"]].reset_index(drop=True)
     h["t"] = pd.to_datetime(h["measured_at"], format="ISO8601")
     if at is not None:
         t0, _ = parse_instant(at, name="date")
@@ -131,8 +131,11 @@ def select_heads(heads: pd.DataFrame, *, window: TimeWindow | None = None, at: s
     elif h.empty:
         raise InsufficientDataError("there are no head readings")
     g = h.groupby(["well_id", "zone_id"], sort=True)
-    out = g.agg(head=("head", "median"), n_readings=("head", "size"), first=("measured_at", "min"),
-                last=("measured_at", "max")).reset_index()
+    # first/last through the datetime column: min/max of text columns falls back to slow Python aggregation
+    out = g.agg(head=("head", "median"), n_readings=("head", "size"), first=("t", "idxmin"),
+                last=("t", "idxmax")).reset_index()
+    out["first"] = h["measured_at"].loc[out["first"].to_numpy()].to_numpy()
+    out["last"] = h["measured_at"].loc[out["last"].to_numpy()].to_numpy()
     return out
 
 
