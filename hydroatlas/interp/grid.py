@@ -179,7 +179,7 @@ def mask_from_buffer(grid: GridSpec, xy, distance: float, *, rows_per_tile: int 
     out = np.zeros(grid.shape, dtype=bool)
     for r0 in range(0, grid.nrows, rows_per_tile):
         r1 = min(grid.nrows, r0 + rows_per_tile)
-        d, _ = tree.query(grid.centers(r0, r1), k=1, distance_upper_bound=distance)
+        d, _ = tree.query(grid.centers(r0, r1), k=1, distance_upper_bound=distance, workers=-1)
         out[r0:r1] = np.isfinite(d).reshape(r1 - r0, grid.ncols)
     return out
 
