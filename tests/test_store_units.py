@@ -193,15 +193,12 @@ def test_drawdown_transmissivity_and_rates_follow_the_store(feet_store, tmp_path
     assert "-T" in bad.output and "unknown transmissivity unit 'ft/d'" in bad.output
 
 
-def test_paths_sidecar_names_k_with_its_unit(feet_store, tmp_path, runner):
-    x0, y0 = _origin()
-    heads = tmp_path / "heads"
-    assert cli(runner, "surface", feet_store, "--unit", "AQ", "--method", "idw", "--cell", 250,
-               "--out", heads).exit_code == 0
+def _spring_and_recharge(store, tmp_path, runner, x0, y0):
+    """A spring of AQ on the head plane and a recharge square upstream of it (given in lon/lat)."""
     sx, sy = x0 + 4000.0, y0 + 1500.0
     sp = write_csv(tmp_path / "springs.csv", [["spring_id", "x", "y", "elev", "unit"],
                                               ["SP1", sx, sy, f"{head_at(sx, x0):.4f}", "AQ"]])
-    assert cli(runner, "import", feet_store, "springs", sp).exit_code == 0
+    assert cli(runner, "import", store, "springs", sp).exit_code == 0
     tr = Transformer.from_crs(FT_CRS, "EPSG:4326", always_xy=True)
     box = [(x0 + 300, y0 + 1200), (x0 + 900, y0 + 1200), (x0 + 900, y0 + 1800), (x0 + 300, y0 + 1800)]
     ring = [list(tr.transform(x, y)) for x, y in box + box[:1]]
@@ -209,7 +206,15 @@ def test_paths_sidecar_names_k_with_its_unit(feet_store, tmp_path, runner):
     area.write_text(json.dumps({"type": "FeatureCollection", "features": [
         {"type": "Feature", "properties": {"area_id": "R1", "kind": "recharge", "unit": "AQ"},
          "geometry": {"type": "Polygon", "coordinates": [ring]}}]}))
-    assert cli(runner, "import", feet_store, "areas", area).exit_code == 0
+    assert cli(runner, "import", store, "areas", area).exit_code == 0
+
+
+def test_paths_sidecar_names_k_with_its_unit(feet_store, tmp_path, runner):
+    x0, y0 = _origin()
+    heads = tmp_path / "heads"
+    assert cli(runner, "surface", feet_store, "--unit", "AQ", "--method", "idw", "--cell", 250,
+               "--out", heads).exit_code == 0
+    _spring_and_recharge(feet_store, tmp_path, runner, x0, y0)
     res = cli(runner, "paths", feet_store, "--unit", "AQ", "--porosity", 0.1, "--surfaces", heads,
               "--capture-radius", "100m", "--out", tmp_path / "p")
     assert res.exit_code == 0, res.output
@@ -327,17 +332,7 @@ def test_logk_surface_read_back_in_its_unit_by_paths_and_grid(feet_store, tmp_pa
         res = cli(runner, "surface", feet_store, "--unit", "AQ", "--quantity", quantity, "--method", "idw",
                   "--cell", 250, "--out", surf)
         assert res.exit_code == 0, res.output
-    sx, sy = x0 + 4000.0, y0 + 1500.0
-    sp = write_csv(tmp_path / "springs.csv", [["spring_id", "x", "y", "elev", "unit"],
-                                              ["SP1", sx, sy, f"{head_at(sx, x0):.4f}", "AQ"]])
-    assert cli(runner, "import", feet_store, "springs", sp).exit_code == 0
-    tr = Transformer.from_crs(FT_CRS, "EPSG:4326", always_xy=True)
-    box = [(x0 + 300, y0 + 1200), (x0 + 900, y0 + 1200), (x0 + 900, y0 + 1800), (x0 + 300, y0 + 1800)]
-    area = tmp_path / "areas.geojson"
-    area.write_text(json.dumps({"type": "FeatureCollection", "features": [
-        {"type": "Feature", "properties": {"area_id": "R1", "kind": "recharge", "unit": "AQ"},
-         "geometry": {"type": "Polygon", "coordinates": [[list(tr.transform(x, y)) for x, y in box + box[:1]]]}}]}))
-    assert cli(runner, "import", feet_store, "areas", area).exit_code == 0
+    _spring_and_recharge(feet_store, tmp_path, runner, x0, y0)
     tables = {}
     for source in ("mean", "surface"):
         out = tmp_path / source
