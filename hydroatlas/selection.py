@@ -141,7 +141,8 @@ def sidecar_selection(path) -> dict | None:
         return None
 
 
-def _assignment(store) -> pd.DataFrame:
+def zone_assignment(store) -> pd.DataFrame:
+    """Every zone with its unit, overlap fraction and flags (SPEC 2.3), from the store's active records."""
     from . import assign
 
     return assign.assign_zones(store.read("zones"), store.read("picks"), store.read("wells"), store.read("units"))
@@ -291,7 +292,7 @@ def select_heads(store, policy: SelectionPolicy | None = None, *, window=None, a
             if (w, z) not in kept:
                 left.append({"what": "heads", "well_id": str(w), "zone_id": str(z), "reason": reason,
                              "count": int(n)})
-    asg = _assignment(store) if assignment is None else assignment
+    asg = zone_assignment(store) if assignment is None else assignment
     zh = sel.merge(asg[["well_id", "zone_id", "unit", "mid_elev", "top_elev", "bottom_elev", "x", "y"]],
                    on=["well_id", "zone_id"], how="left")
     return zh, left
@@ -320,7 +321,7 @@ def select_ktests(store, policy: SelectionPolicy | None = None,
     if not policy.include_poor:
         why.mark(tests["quality"].eq("poor"), REASON_POOR)
     left = _entries("ktests", tests[~why.kept], why.reason)
-    asg = _assignment(store) if assignment is None else assignment
+    asg = zone_assignment(store) if assignment is None else assignment
     frame = tests[why.kept].reset_index(drop=True).merge(
         asg[["well_id", "zone_id", "unit", "straddles", "overlap_fraction", "thickness"]],
         on=["well_id", "zone_id"], how="left")

@@ -148,8 +148,6 @@ def _is_padded(text: str) -> bool:
 
 
 def _line_from_parser_message(msg: str) -> int | None:
-    import re
-
     m = re.search(r"line (\d+)", msg)
     return int(m.group(1)) if m else None
 

@@ -12,7 +12,7 @@ from ..errors import InsufficientDataError, ParameterError
 from ..export.names import ensure_folder, file_stem, output_path, unit_path
 from ..store import Store
 from .store_jobs import (
-    CAUTION, _crs_to_m, _length_to_m, _unit_members, tests_with_units, unit_stats, zone_assignment,
+    CAUTION, _crs_to_m, _unit_members, tests_with_units, unit_stats, zone_assignment,
 )
 from .surfaces import (
     _domain_polygons, make_interpolator, read_surface, surface_points, unit_intervals, unit_presence_of, verticals,
@@ -22,7 +22,6 @@ from ..selection import (
     DEFAULT_TOLERANCE_DAYS, SelectionPolicy, describe, select_ktests, select_readings, selection_record,
     sidecar_selection,
 )
-from .store_jobs import unit_stats_selected
 from .store_jobs import store_k_unit
 
 

@@ -10,7 +10,7 @@ import pandas as pd
 from ..errors import HydroatlasError, InsufficientDataError, ParameterError
 from ..export.names import ensure_folder, unit_path, write_csv
 from ..store import Store
-from .store_jobs import CAUTION, _crs_to_m, _length_to_m, _unit_members, unit_stats, zone_assignment
+from .store_jobs import CAUTION, _crs_to_m, _length_to_m, _unit_members, zone_assignment
 from .store_jobs import unit_stats_selected
 from ..selection import SelectionPolicy, selection_record, sidecar_selection
 from .surfaces import read_surface

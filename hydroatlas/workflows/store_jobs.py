@@ -8,7 +8,7 @@ import pandas as pd
 
 from .. import assign, quality, stats
 from ..errors import ParameterError
-from ..selection import SelectionPolicy, left_out_by_unit, select_ktests, selection_record
+from ..selection import SelectionPolicy, left_out_by_unit, select_ktests, selection_record, zone_assignment
 from ..store import Store, create_store
 from ..store.importers import ImportReport, import_file
 
@@ -54,11 +54,6 @@ def restore_records(store: Store, kind: str, ids: list[str]) -> int:
 def record_history(store: Store, kind: str, ident: str) -> list[dict]:
     """Every version of one record, oldest first (the last is the current one)."""
     return store.record_versions(_record_table(kind), ident)
-
-
-def zone_assignment(store: Store) -> pd.DataFrame:
-    """Every zone with its unit, overlap fraction and flags (SPEC 2.3)."""
-    return assign.assign_zones(store.read("zones"), store.read("picks"), store.read("wells"), store.read("units"))
 
 
 def tests_with_units(store: Store, assignment: pd.DataFrame | None = None,

@@ -14,7 +14,7 @@ from ..selection import DEFAULT_TOLERANCE_DAYS, SelectionPolicy, select_ktests, 
 from ..selection import select_heads as select_zone_heads
 from ..store import Store
 from .store_jobs import (
-    CAUTION, _crs_to_m, _length_to_m, _unit_members, _window, tests_with_units, unit_stats, zone_assignment,
+    CAUTION, _crs_to_m, _length_to_m, _unit_members, _window, zone_assignment,
 )
 
 
