@@ -85,7 +85,7 @@ def test_quiet_keeps_warnings(capsys):
     """Warnings are cautions, not notes: under -q a selection's note goes, its warning stays."""
     import click
 
-    from hydroatlas import cli as cli_module
+    from hydroatlas.cli import _common as cli_module
 
     left_out = [{"what": "heads", "well_id": "W1", "zone_id": "P1", "reason": "quality poor", "count": 2},
                 {"what": "heads", "well_id": "W2", "zone_id": "S1", "reason": "no reading within 31 days of 2024-01-01",
@@ -107,7 +107,7 @@ def test_quiet_and_verbose_together_are_refused(runner, mini_store):
 def test_quiet_turns_the_progress_bar_off_even_on_a_terminal(monkeypatch):
     import click
 
-    from hydroatlas import cli as cli_module
+    from hydroatlas.cli import _common as cli_module
 
     class Terminal:
         def isatty(self):

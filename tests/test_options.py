@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 import rasterio
 
-from hydroatlas import cli as cli_module
+from hydroatlas.cli import _common as cli_module
 from hydroatlas.errors import ParameterError
 
 from conftest import CRS, cli, write_csv
