@@ -61,6 +61,29 @@ def heads(x, y):
     return {"ULS": h_uls, "LCL": h_lcl, "CAP": ground(x, y) - 5.0}  # CAP: perched, near the surface
 
 
+#: the drought of the head record (issue 14): heads fall linearly from DROUGHT[0] to their lowest at DROUGHT[1], by
+#: DROUGHT_DROP metres per unit, and recover linearly by DROUGHT[2] (month indices from 2022-01, fractional)
+DROUGHT = (17.0, 23.0, 31.0)  # June 2023, December 2023, August 2024
+DROUGHT_DROP = {"CAP": 1.8, "ULS": 2.6, "SHL": 1.3, "LCL": 0.9}
+#: Lanternfall Spring (SP-1) follows the head of its index zone (the ULS monitoring screen nearest to it):
+#: Q = SPRING_C (h - h0)^SPRING_N for h > h0, 0 below, with h0 = that zone's long-term head minus SPRING_H0_BELOW
+SPRING_N = 1.5
+SPRING_H0_BELOW = 5.0  # m
+SPRING_Q_MEAN = 28_000.0  # m3/d at the long-term head
+
+
+def season_term(month):
+    """Seasonal swing (fraction of the unit's amplitude) at a fractional month index from 2022-01."""
+    return np.sin(2 * np.pi * (np.asarray(month, dtype=float) - 2) / 12.0)
+
+
+def drought_term(month):
+    """Drought decline as a fraction of DROUGHT_DROP (0 before and after, 1 at the lowest)."""
+    m = np.asarray(month, dtype=float)
+    a, b, c = DROUGHT
+    return np.clip(np.where(m <= b, (m - a) / (b - a), (c - m) / (c - b)), 0.0, 1.0)
+
+
 def smooth_field(rng, n_waves=6, scale=6_000.0):
     """A smooth random field on the plateau with unit variance (sum of random cosines)."""
     k = rng.normal(size=(n_waves, 2)) / scale
@@ -164,7 +187,9 @@ def build(out: Path) -> dict[str, int]:
     pumpers = [w for w in wells if w[5] in ("supply", "pumping")]
     head_rows = []
     months = [f"{yy}-{mm:02d}-15T10:00:00" for yy in (2022, 2023, 2024) for mm in range(1, 13)]
-    season = np.sin(2 * np.pi * (np.arange(36) - 2) / 12.0)
+    season = season_term(np.arange(36))
+    drought = drought_term(np.arange(36))
+    zone_base = {}  # (well, zone) -> (x, y, long-term head, seasonal amplitude, unit) for the spring's index zone
     for wid, zid, top_d, bot_d, zkind, override, code in zones:
         x, y = wxy[wid]
         g = float(ground(x, y))
@@ -181,9 +206,11 @@ def build(out: Path) -> dict[str, int]:
                 r = max(np.hypot(x - p[1], y - p[2]), 50.0)
                 base -= max(0.0, 1.2 * np.log(3_000.0 / r))
         base = min(base, g - 1.0)
+        zone_base[(wid, zid)] = (x, y, base, amp, code, zkind)
         ref = round(g + 0.6, 2)
+        drop = DROUGHT_DROP.get(code, 0.0)
         for m, when in enumerate(months):
-            val = base + amp * season[m] + 0.12 * rng.normal()
+            val = base + amp * season[m] - drop * drought[m] + 0.12 * rng.normal()
             if zkind == "screen" and m % 2 == 0:
                 head_rows.append([wid, zid, when, "", f"{ref - val:.2f}", f"{ref:.2f}", "good"])
             else:
@@ -220,11 +247,25 @@ def build(out: Path) -> dict[str, int]:
                 "Lanternfall Spring", "ULS"],
                ["SP-2", round(sp2[0], 1), round(sp2[1], 1), round(float(heads(*sp2)["ULS"]) - 1.5, 2),
                 "Wren Seep", "ULS"]]
+    # SP-1 follows the noise-free head of its index zone (weekly gaugings, 5 % reading noise); SP-2, a small seep,
+    # is gauged monthly in L/s and follows SP-1
+    index = min(((w, z) for (w, z), v in zone_base.items() if v[4] == "ULS" and v[5] == "screen"
+                 and dict((r[0], r[5]) for r in wells)[w] == "monitoring"),
+                key=lambda k: np.hypot(zone_base[k][0] - SPRING[0], zone_base[k][1] - SPRING[1]))
+    _, _, h_mean, amp, _, _ = zone_base[index]
+    h0 = h_mean - SPRING_H0_BELOW
+    c = SPRING_Q_MEAN / SPRING_H0_BELOW ** SPRING_N
+    days = np.arange(0, 1092, 7)  # from 2022-01-03
+    month = days / (365.25 / 12.0) + (3 - 15) / 30.4  # readings of month m are on the 15th: day 0 is 2022-01-03
+    h_true = h_mean + amp * season_term(month) - DROUGHT_DROP["ULS"] * drought_term(month)
     discharge = []
-    for m, when in enumerate(months):
-        q1 = 28_000.0 * (1 + 0.35 * season[m]) * float(np.exp(0.1 * rng.normal()))
+    for d, h in zip(days, h_true):
+        q1 = c * max(h - h0, 0.0) ** SPRING_N * float(np.exp(0.05 * rng.normal()))
+        when = (np.datetime64("2022-01-03T09:00") + np.timedelta64(int(d), "D")).astype(str)
         discharge.append(["SP-1", when, f"{q1:.0f}", "m3/d"])
-        discharge.append(["SP-2", when, f"{q1 / 40.0 / 86.4:.2f}", "L/s"])
+    for m, when in enumerate(months):
+        q2 = SPRING_Q_MEAN / 40.0 / 86.4 * (1 + 0.35 * season[m]) * float(np.exp(0.1 * rng.normal()))
+        discharge.append(["SP-2", when, f"{q2:.2f}", "L/s"])
 
     _write(out / "units.csv", ["code", "name", "rank", "role", "parent"],
            [[u[0], u[1], u[2], u[3], ""] for u in UNITS])
@@ -246,7 +287,9 @@ def build(out: Path) -> dict[str, int]:
     _write_areas(out / "areas.geojson")
     (out / "crs.txt").write_text(CRS + "\n")
     return {"wells": len(wells), "zones": len(zones), "ktests": len(ktests), "heads": len(head_rows),
-            "slug tests": len(slug_geom), "known slug K": known}
+            "slug tests": len(slug_geom), "known slug K": known,
+            "spring index zone": "/".join(index), "spring cease-flow head": round(float(h0), 2),
+            "spring relation": f"Q = {c:.1f} (h - {h0:.2f})^{SPRING_N} m3/d"}
 
 
 G = 9.80665  # m/s2, standard gravity
