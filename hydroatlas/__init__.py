@@ -3,7 +3,7 @@
 from .errors import HydroatlasError
 
 __version__ = "0.1.0"
-__all__ = ["open_store", "create_store", "HydroatlasError", "__version__"]
+__all__ = ["open_store", "create_store", "read_surface", "HydroatlasError", "__version__"]
 
 
 def __getattr__(name):
@@ -12,4 +12,8 @@ def __getattr__(name):
         from . import store
 
         return getattr(store, name)
+    if name == "read_surface":  # a surface GeoTIFF as an xarray DataArray (rasterio and xarray load on use)
+        from .export.rasters import read_surface
+
+        return read_surface
     raise AttributeError(f"module 'hydroatlas' has no attribute {name!r}")

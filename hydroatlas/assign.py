@@ -29,6 +29,16 @@ def unit_ancestors(units: pd.DataFrame) -> dict[str, list[str]]:
     return out
 
 
+def unit_members(units: pd.DataFrame, code: str) -> set[str]:
+    """The unit ``code`` and all its sub-units; ParameterError naming the known units when ``code`` is not one."""
+    from .errors import ParameterError
+
+    if code not in set(units["code"]):
+        raise ParameterError(f"unit {code!r} is not in the store; known units: {', '.join(units['code'])}",
+                             param="unit")
+    return {code} | {c for c, chain in unit_ancestors(units).items() if code in chain}
+
+
 def finest_picks(picks: pd.DataFrame, units: pd.DataFrame) -> pd.DataFrame:
     """Drop a parent unit's pick in a well where picks of its sub-units exist."""
     if picks.empty or units["parent"].isna().all():
@@ -104,13 +114,14 @@ def infer_picks(wells: pd.DataFrame, picks: pd.DataFrame, units: pd.DataFrame, *
 
 
 def assign_zones(zones: pd.DataFrame, picks: pd.DataFrame, wells: pd.DataFrame, units: pd.DataFrame, *,
-                 infer: bool = True) -> pd.DataFrame:
+                 infer: bool = True, inferred: pd.DataFrame | None = None) -> pd.DataFrame:
     """Give every zone a unit.
 
     A zone inside one unit gets it; a zone that crosses units goes to the
     unit with the largest overlap (ties to the upper unit) and is flagged as
     straddling; a ``unit`` override in the zone row wins. Zones in wells
-    without picks use :func:`infer_picks` and are flagged ``inferred``.
+    without picks use :func:`infer_picks` and are flagged ``inferred``
+    (``inferred``: its result when the caller has it already, so it is computed once).
 
     Returns
     -------
@@ -129,7 +140,7 @@ def assign_zones(zones: pd.DataFrame, picks: pd.DataFrame, wells: pd.DataFrame, 
     real = finest_picks(picks[["well_id", "unit", "top_depth", "bottom_depth"]], units).assign(inferred=False)
     all_picks = real
     if infer:
-        guessed = infer_picks(wells, picks, units).assign(inferred=True)
+        guessed = (infer_picks(wells, picks, units) if inferred is None else inferred).assign(inferred=True)
         if not guessed.empty:
             all_picks = pd.concat([real, guessed], ignore_index=True)
     rank = dict(zip(units["code"], units["rank"]))
@@ -169,6 +180,26 @@ def assign_zones(zones: pd.DataFrame, picks: pd.DataFrame, wells: pd.DataFrame, 
             "units_crossed", "top_depth", "bottom_depth", "top_elev", "bottom_elev", "mid_elev", "thickness",
             "x", "y", "ground_elev"]
     return out[keep].reset_index(drop=True)
+
+
+def unit_intervals(wells: pd.DataFrame, picks: pd.DataFrame, units: pd.DataFrame, *,
+                   inferred: pd.DataFrame | None = None) -> pd.DataFrame:
+    """Elevation interval of every unit at every well: the (finest) picks, plus inferred picks at wells without.
+
+    ``inferred`` is the result of :func:`infer_picks` when the caller has it already (computed when None).
+
+    Returns
+    -------
+    DataFrame
+        well_id, unit, top_elev, bottom_elev (store length unit above the vertical datum).
+    """
+    real = finest_picks(picks, units)
+    guessed = infer_picks(wells, picks, units) if inferred is None else inferred
+    allp = pd.concat([real[["well_id", "unit", "top_depth", "bottom_depth"]], guessed], ignore_index=True)
+    allp = allp.merge(wells[["well_id", "ground_elev"]], on="well_id")
+    allp["top_elev"] = allp["ground_elev"] - allp["top_depth"]
+    allp["bottom_elev"] = allp["ground_elev"] - allp["bottom_depth"]
+    return allp[["well_id", "unit", "top_elev", "bottom_elev"]]
 
 
 # -- unit extent from the picks ------------------------------------------------------

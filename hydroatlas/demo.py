@@ -13,6 +13,12 @@ import pandas as pd
 from . import workflows
 
 DEMO_POROSITY = 0.02  # effective porosity of the karst limestone (invented, plausible for fractured carbonate)
+#: the demo's drought and a baseline of the same season a year earlier (demo_region/README.md)
+DEMO_DROUGHT = "2023-08-01/2023-11-30"
+DEMO_BASELINE = "2022-08-01/2022-11-30"
+#: Lanternfall Spring's index zone (the generator makes its discharge follow this zone's head)
+DEMO_INDEX_ZONE = "ZP-010/S1"
+DEMO_HYDROGRAPH_WELLS = ("ZP-010", "ZP-024", "ZP-025")
 DEMO_SPRING_CONDUCTANCE = 1000.0  # m2/d, drain conductance of a spring cell in the MODFLOW 6 simulation (invented)
 IMPORT_ORDER = ("units", "wells", "picks", "zones", "ktests", "heads", "pumping", "springs", "discharge", "areas",
                 "slugtests", "sluggeometry")
@@ -105,11 +111,23 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
                        f"{Path(res['files']['raster']).name}")
         fwd = workflows.trace_paths(store, "ULS", porosity=DEMO_POROSITY, out=surfaces)
         bwd = workflows.trace_paths(store, "ULS", porosity=DEMO_POROSITY, out=surfaces, backward=True)
+        # the spring question: hydrographs of the multi-zone wells and the index zone with the drought shaded,
+        # the drought's head change as a map, discharge against head at the index zone (cease-flow head and
+        # trigger levels), then the pumping scenario reports what it takes from the spring
+        hydro = workflows.write_hydrographs(store, out=out / "hydrographs",
+                                            wells=DEMO_HYDROGRAPH_WELLS, springs=["SP-1"],
+                                            window=DEMO_DROUGHT, baseline=DEMO_BASELINE)
+        change = workflows.build_surface(store, "ULS", "change", method="kriging", window=DEMO_DROUGHT,
+                                         baseline=DEMO_BASELINE, out=surfaces)
+        spring = workflows.springflow(store, "SP-1", index=DEMO_INDEX_ZONE, out=surfaces)
+        ranked = workflows.springflow(store, "SP-1", out=out / "springflow_ranked", figure=False)
         scenario = workflows.drawdown_scenario(store, "ULS", days=365, storativity=0.002, out=surfaces,
-                                               new_wells=[("PROPOSED-1", 620_000.0, 4_106_000.0, 3000.0)])
+                                               new_wells=[("PROPOSED-1", 620_000.0, 4_106_000.0, 3000.0)],
+                                               name="proposed-wellfield")
         map_path = workflows.build_map(store, unit="ULS", out=out / "map.html", surfaces=surfaces)
         layer_files = workflows.export_layers(store, out=out, surfaces=surfaces)
-        figure_files = workflows.make_figures(store, out=out / "figures", surfaces=surfaces)
+        figure_files = workflows.make_figures(store, out=out / "figures", surfaces=surfaces, board_map=True,
+                                              unit="ULS")
         # the spring drains' conductance is invented for the demo (m2/d); a modeller sets it from the spring
         model = workflows.model_grid(store, cell=250.0, out=out / "model" / "zephyrine_model.nc",
                                      layers=["CAP", "ULS", "SHL", "LCL"], surfaces=surfaces,
@@ -131,6 +149,26 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
     echo(f"\nPumping scenario (ULS, 365 d, S = 0.002, one proposed well of 3000 m3/d): largest drawdown "
          f"{scenario['max_drawdown']:.2f} m; {len(scenario['impacts'])} springs/zones lose more than "
          f"{scenario['threshold']} m -> {scenario['files']['impacts']}")
+    echo(f"\nHydrographs (drought {DEMO_DROUGHT} and baseline {DEMO_BASELINE} shaded): "
+         f"{len(hydro['files'])} files in {out / 'hydrographs'}")
+    echo(f"Drought head change (ULS, {DEMO_DROUGHT} minus {DEMO_BASELINE}): {change['n_points']} wells -> "
+         f"{Path(change['files']['raster']).name}")
+    h0 = spring["cease_flow_head"]
+    echo(f"\nSpring SP-1 against the head of {DEMO_INDEX_ZONE} ({spring['model']} fit): cease-flow head "
+         f"{h0['value']:.2f} m (95 % {h0['low']:.2f} to {h0['high']:.2f} m); trigger levels: "
+         + "; ".join(f"{lv['percent']:g} % of median discharge at {lv['head']:.2f} m "
+                     f"({lv['low']:.2f} to {lv['high']:.2f})" for lv in spring["trigger_levels"]))
+    echo(f"  without an index zone the best-ranked candidate is {ranked['index']['well_id']}/"
+         f"{ranked['index']['zone_id']} -> {spring['files']['sidecar']}")
+    effects = scenario.get("spring_effects")
+    if effects is not None and len(effects):
+        for row in pd.DataFrame(effects).to_dict(orient="records"):
+            echo(f"  scenario proposed-wellfield: drawdown {row['drawdown_at_index']:.2f} {row['length_unit']} at "
+                 f"{row['index_well']}/{row['index_zone']} takes {row['discharge_change']:.0f} "
+                 f"({row['discharge_change_low']:.0f} to {row['discharge_change_high']:.0f}) {row['rate_unit']} "
+                 f"from {row['spring_id']} ({row['change_percent']:.1f} %); its discharge over its contributing "
+                 f"area equals {row['equivalent_recharge_before']:.3g} {row['recharge_unit']} of recharge")
+    echo(f"Caution: {workflows.CAUTION}")
     echo(f"\nWeb map (offline, self-contained): {map_path}")
     echo(f"GIS layers: {layer_files['gpkg']} and {out / 'geojson'}")
     echo(f"Figures: {len(figure_files)} PNG/SVG files in {out / 'figures'}")
@@ -142,4 +180,8 @@ def run_demo(out, *, echo: Callable[[str], None] = print) -> dict:
          f"in WEL, {len(m6['springs'])} springs in DRN (conductance {m6['spring_conductance']:g} "
          f"{m6['spring_conductance_unit']}, invented for the demo)")
     echo(f"store: {store_path}")
-    return {"store": str(store_path), "stats": stats_rows, "findings": findings}
+    files = {"store": str(store_path), "check": str(out / "check.csv"), "verticals": str(out / "verticals.csv"),
+             "surfaces": str(surfaces), "map": str(map_path), "layers": str(layer_files["gpkg"]),
+             "figures": [str(f) for f in figure_files], "model_grid": str(model["files"]["netcdf"]),
+             "mf6": str(m6["folder"])}
+    return {"store": str(store_path), "stats": stats_rows, "findings": findings, "files": files}

@@ -120,7 +120,8 @@ def select_heads(heads: pd.DataFrame, *, window: TimeWindow | None = None, at: s
             if not near.any():
                 raise InsufficientDataError(
                     f"no zone has a head reading within {float(tolerance_days):g} days of {at} (the nearest is "
-                    f"{float(out['offset_days'].min()):.0f} days away); give a wider --tolerance or another date")
+                    f"{float(out['offset_days'].min()):.0f} days away); give a wider tolerance_days= or another date",
+                    param="tolerance_days")
             out = out[near]
         out = out.assign(n_readings=1, first=out["measured_at"], last=out["measured_at"])
         return out[["well_id", "zone_id", "head", "n_readings", "first", "last", "offset_days"]].reset_index(drop=True)

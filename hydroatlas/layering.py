@@ -1,8 +1,8 @@
 """Model layers from unit surfaces (SPEC 2.10): the numeric core behind ``hydroatlas grid``.
 
-Pure functions on numpy arrays and plain values: no store, no files. The workflow
-(:func:`hydroatlas.workflows.model_grid`) reads the picks, K tests and head surfaces, calls these functions
-and hands the resulting :class:`ModelLayers` to the writers (NetCDF, plain arrays, MODFLOW 6).
+Pure functions on numpy arrays and plain values: no store, no files. :func:`hydroatlas.modelbuild.build_model_layers`
+strings them together into a :class:`ModelLayers`; the workflow (:func:`hydroatlas.workflows.model_grid`) reads the
+picks, K tests and head surfaces, calls it and hands the result to the writers (NetCDF, plain arrays, MODFLOW 6).
 
 Geometry in one paragraph. The units of the store, top first, are separated by *contacts*: contact ``j`` is
 the top of unit ``j`` and contact ``n`` the bottom of the last unit; contact 0 is the ground. At each well the

@@ -630,3 +630,106 @@ def full_penetrations(bottom_depth, total_depth, has_unit_below, *, tolerance: f
     at_total_depth = np.isfinite(td) & (np.abs(td - bottom) <= tolerance)
     drilled_on = np.isfinite(td) & (td > bottom + tolerance)
     return (below | drilled_on) & ~at_total_depth
+
+
+# ---------------------------------------------------------------------------
+# a pumping scenario: its drawdown, the adjustment to unpumped heads, and where heads fall below a unit
+# ---------------------------------------------------------------------------
+
+def scenario_drawdown(wells_xy, rates, t, *, T, S, r_min=None, history=None, grid=None, points=None):
+    """Drawdown of a pumping scenario and the drawdown of past pumping, on a grid or at points.
+
+    The scenario's wells pump ``rates`` for ``t`` (:func:`superpose_drawdown`; wells with a zero rate add
+    nothing). ``history`` holds superposition terms of the pumping already in measured heads
+    (:func:`history_terms`); their summed drawdown is returned apart, so that a caller can add it back to
+    measured heads to get unpumped heads.
+
+    Parameters
+    ----------
+    wells_xy : array_like (k, 2)
+        Scenario wells (length, e.g. m).
+    rates : array_like (k,)
+        Rate of each (volume / time, e.g. m3/d); negative: less pumping than before (recovery).
+    t : float
+        Duration of the scenario (time, e.g. d), > 0.
+    T : float or array_like (k,)
+        Transmissivity (length^2 / time) for all or at each scenario well.
+    S : float
+        Storativity (dimensionless).
+    r_min : float, optional
+        Smallest distance used (the well radius); see :func:`superpose_drawdown`.
+    history : tuple (xy (h, 2), rates (h,), t (h,), T (h,)), optional
+        Terms of past pumping at the time of the heads (elapsed time per term).
+    grid : tuple (x_centers (nx,), y_centers (ny,)), optional
+        Evaluate on this grid (north first for a north-up raster) ...
+    points : array_like (m, 2), optional
+        ... or at these points (one of the two).
+
+    Returns
+    -------
+    drawdown, history_drawdown : numpy.ndarray (ny, nx) or (m,)
+        Scenario drawdown and the drawdown of the history terms (length, zero where there are none).
+
+    Examples
+    --------
+    One well, no history, at 10 m: Q / (4 pi T) W(r^2 S / (4 T t)).
+
+    >>> s, past = scenario_drawdown([[0.0, 0.0]], [1000.0], 1.0, T=500.0, S=1e-4, points=[[10.0, 0.0]])
+    >>> bool(abs(s[0] - theis_drawdown(10.0, 1.0, Q=1000.0, T=500.0, S=1e-4)) < 1e-9), past.tolist()
+    (True, [0.0])
+    """
+    if (grid is None) == (points is None):
+        raise ParameterError("give grid= or points=, one of them", param=("grid", "points"))
+    q = _finite("rates", rates).reshape(-1)
+    w = _finite("wells_xy", wells_xy).reshape(-1, 2)
+    if len(w) != len(q):
+        raise ParameterError(f"rates must have shape ({len(w)},) to match wells_xy; got {q.shape}")
+    T_ = _per_well("T", np.asarray(T, dtype=float), len(q))  # checked > 0 where a well pumps (below)
+    on = q != 0
+    terms = [(w[on], q[on], float(t), T_[on])]
+    if history is not None:
+        terms.append(tuple(history))
+    if grid is not None:
+        xc, yc = grid
+        shape = (len(yc), len(xc))
+    else:
+        pts = _finite("points", points).reshape(-1, 2)
+        shape = (len(pts),)
+    out = [np.zeros(shape), np.zeros(shape)]
+    for i, (txy, tq, tt, tT) in enumerate(terms):
+        if len(tq) == 0:
+            continue
+        if grid is not None:
+            v = superpose_drawdown_grid(xc, yc, txy, tq, tt, T=tT, S=S, r_min=r_min)
+        else:
+            v = superpose_drawdown(pts, txy, tq, tt, T=tT, S=S, r_min=r_min)
+        out[min(i, 1)] += v
+    return out[0], out[1]
+
+
+def level_crossings(head_before, head_after, unit_top, unit_bottom) -> dict:
+    """Where lowered heads fall below a unit's top (confined to unconfined) or its bottom (dewatered).
+
+    Parameters
+    ----------
+    head_before, head_after : array_like
+        Heads before and after the drawdown (length above the datum), one shape.
+    unit_top, unit_bottom : array_like
+        Elevation of the unit's top and bottom, same shape; NaN where unknown (no crossing there).
+
+    Returns
+    -------
+    dict of bool arrays
+        ``below_top`` (after < top), ``taken_below_top`` (before >= top and after < top) and ``below_bottom``
+        (after < bottom); False wherever a value is NaN.
+
+    >>> c = level_crossings([10.0, 10.0], [8.0, 4.0], [9.0, float("nan")], [5.0, 5.0])
+    >>> {k: v.tolist() for k, v in c.items()}
+    {'below_top': [True, False], 'taken_below_top': [True, False], 'below_bottom': [False, True]}
+    """
+    before, after, top, bottom = np.broadcast_arrays(*(np.asarray(a, float) for a in
+                                                       (head_before, head_after, unit_top, unit_bottom)))
+    with np.errstate(invalid="ignore"):
+        below_top = after < top
+        return {"below_top": below_top, "taken_below_top": below_top & (before >= top),
+                "below_bottom": after < bottom}

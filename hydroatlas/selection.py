@@ -44,9 +44,11 @@ REASON_PUMPING_KIND = "level in a well of kind {kind}"
 REASON_PUMPING_ACTIVE = "pumping record active at the reading's time"
 REASON_TOLERANCE = "no reading within {days:g} days of {date}"
 
-# which option brings back what a reason left out (for the notes the command line prints)
-_BRING_BACK = {REASON_POOR: "--include-poor", REASON_PUMPING_ACTIVE: "--include-pumping-wells",
-               **{REASON_PUMPING_KIND.format(kind=k): "--include-pumping-wells" for k in PUMPING_KINDS}}
+# which parameter brings back what a reason left out (for the notes; a front end renames HINT_PARAMS)
+_BRING_BACK = {REASON_POOR: "include_poor=True", REASON_PUMPING_ACTIVE: "include_pumping_wells=True",
+               **{REASON_PUMPING_KIND.format(kind=k): "include_pumping_wells=True" for k in PUMPING_KINDS}}
+#: the parameters the texts of :func:`describe` may name (as ``name=``, see :meth:`HydroatlasError.renamed`)
+HINT_PARAMS = ("include_poor", "include_pumping_wells", "tolerance_days")
 
 
 @dataclass(frozen=True)
@@ -87,8 +89,8 @@ class SelectionPolicy:
             raise ParameterError("The 'exclude_wells' parameter of SelectionPolicy must be well ids (a list, or "
                                  f"a text of ids separated by commas). Got {wells!r} instead.") from None
         if any(not w for w in items):
-            raise ParameterError(f"exclude_wells (--exclude-wells) holds an empty well id ({','.join(items)!r}); "
-                                 "give ids separated by commas, e.g. W1,W2")
+            raise ParameterError(f"exclude_wells= holds an empty well id ({','.join(items)!r}); "
+                                 "give ids separated by commas, e.g. W1,W2", param="exclude_wells")
         object.__setattr__(self, "exclude_wells", tuple(dict.fromkeys(items)))
 
     def to_dict(self) -> dict:
@@ -117,7 +119,8 @@ def resolve(store, policy: SelectionPolicy | None) -> SelectionPolicy:
         known = set(store.read("wells", ["well_id"], include_retired=True)["well_id"])
         unknown = [w for w in policy.exclude_wells if w not in known]
         if unknown:
-            raise ParameterError(f"--exclude-wells names well(s) not in the store: {', '.join(unknown)}")
+            raise ParameterError(f"exclude_wells= names well(s) not in the store: {', '.join(unknown)}",
+                                 param="exclude_wells")
     return policy
 
 
@@ -280,10 +283,11 @@ def select_heads(store, policy: SelectionPolicy | None = None, *, window=None, a
         window = TimeWindow.parse(window)
     if at is not None and not (isinstance(tolerance_days, (int, float, np.number)) and np.isfinite(tolerance_days)
                                and tolerance_days >= 0):
-        raise ParameterError(f"--tolerance must be a number of days >= 0 and finite (got {tolerance_days})")
+        raise ParameterError(f"tolerance_days= must be a number of days >= 0 and finite (got {tolerance_days})",
+                             param="tolerance_days")
     readings, left = select_readings(store, policy, window=window)
     if readings.empty:
-        raise InsufficientDataError(_nothing_left("head readings", left))
+        raise InsufficientDataError(_nothing_left("head readings", left), param=HINT_PARAMS)
     sel = pick_heads(readings, window=window, at=at, tolerance_days=tolerance_days if at is not None else None)
     if at is not None:
         kept = set(zip(sel["well_id"], sel["zone_id"]))
@@ -348,11 +352,13 @@ def left_out_by_unit(left_out: list[dict], assignment: pd.DataFrame, members: di
 _NOUNS = {"heads": ("head reading", "head readings"), "ktests": ("K test", "K tests")}
 
 
-def describe(left_out: list[dict]) -> list[tuple[str, str]]:
+def describe(left_out: list[dict], *, names=None) -> list[tuple[str, str]]:
     """One-line texts saying what a selection left out and why, as (level, text) pairs.
 
     level is "note" for what the policy left out and "warning" for zones without a reading near the date
-    asked for. Empty when nothing was left out.
+    asked for. Empty when nothing was left out. The texts say which parameter brings records back, as Python
+    spells it (``include_poor=True``); ``names`` (a mapping or callable, as for
+    :meth:`hydroatlas.errors.HydroatlasError.renamed`) spells the :data:`HINT_PARAMS` another way (``--include-poor``).
     """
     lines = []
     for what in ("ktests", "heads"):
@@ -374,5 +380,9 @@ def describe(left_out: list[dict]) -> list[tuple[str, str]]:
         if far:
             zones = len(far)
             lines.append(("warning", f"{zones} zone{'s' if zones != 1 else ''} left out: {far[0]['reason']} "
-                                     "(--tolerance DAYS widens the search)"))
+                                     "(tolerance_days=DAYS widens the search)"))
+    if names is not None:
+        from .errors import rename_params
+
+        lines = [(level, rename_params(text, HINT_PARAMS, names)) for level, text in lines]
     return lines

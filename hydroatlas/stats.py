@@ -39,6 +39,28 @@ def log_k_summary(k, *, confidence: float = 0.95) -> dict:
     n = lg.size
     mean = float(lg.mean())
     var = float(lg.var(ddof=1)) if n > 1 else math.nan
+    return log_k_moments_summary(n, mean, var, median=float(np.median(k)), k_min=float(k.min()),
+                                 k_max=float(k.max()), confidence=confidence)
+
+
+def log_k_moments_summary(n: int, log10k_mean: float, log10k_var: float, *, median: float, k_min: float,
+                          k_max: float, confidence: float = 0.95) -> dict:
+    """:func:`log_k_summary` from the moments of log10 K instead of the values (what a database aggregates).
+
+    Parameters
+    ----------
+    n : int
+        Number of values (>= 1).
+    log10k_mean, log10k_var : float
+        Mean and sample variance (ddof = 1; ignored for n = 1) of log10 K, K in the unit of the result.
+    median, k_min, k_max : float
+        Median, minimum and maximum of K in that unit.
+    """
+    n = int(n)
+    if n < 1:
+        raise ParameterError("log_k_moments_summary needs at least one K value")
+    mean = float(log10k_mean)
+    var = float(log10k_var) if n > 1 else math.nan
     std = math.sqrt(var) if n > 1 else math.nan
     if n > 1:
         half = float(sps.t.ppf(0.5 + confidence / 2.0, n - 1)) * std / math.sqrt(n)
@@ -49,9 +71,9 @@ def log_k_summary(k, *, confidence: float = 0.95) -> dict:
         "n": n,
         "k_geomean": 10 ** mean,
         "k_geomean_ci95": ci,
-        "k_median": float(np.median(k)),
-        "k_min": float(k.min()),
-        "k_max": float(k.max()),
+        "k_median": float(median),
+        "k_min": float(k_min),
+        "k_max": float(k_max),
         "log10k_mean": mean,
         "log10k_var": var,
         "log10k_std": std,
@@ -155,6 +177,75 @@ def unit_statistics(tests: pd.DataFrame, units: pd.DataFrame, *, per: str = "tes
                       .groupby([sub[k] for k in keys]).mean().to_numpy())
             values = 10 ** values
         s = log_k_summary(k_from_ms(values, k_unit), confidence=confidence)
+        row["n_values"] = s.pop("n")
+        row.update(s)
+        row["k_geomean_ci95"] = list(row["k_geomean_ci95"])
+        rows.append(row)
+    return rows
+
+
+def unit_groups(assignment: pd.DataFrame, units: pd.DataFrame, *, exclude_straddles: bool = False) -> pd.DataFrame:
+    """The zones whose tests count for each unit: its own zones and those of its sub-units.
+
+    Returns a DataFrame well_id, zone_id, group (the unit code), for ``Store.aggregate_logk``; zones without a
+    unit, and with ``exclude_straddles`` the zones that straddle units, are left out (as in
+    :func:`unit_statistics`).
+    """
+    zones = assignment[assignment["unit"].notna()]
+    if exclude_straddles and "straddles" in zones:
+        zones = zones[~zones["straddles"].fillna(False).astype(bool)]
+    members: dict[str, set[str]] = {c: {c} for c in units["code"]}
+    for code, chain in unit_ancestors(units).items():
+        for anc in chain:
+            members.setdefault(anc, {anc}).add(code)
+    parts = [zones.loc[zones["unit"].isin(codes), ["well_id", "zone_id"]].assign(group=code)
+             for code, codes in members.items()]
+    if not parts:
+        return pd.DataFrame(columns=["well_id", "zone_id", "group"])
+    return pd.concat(parts, ignore_index=True)
+
+
+def unit_statistics_from_aggregates(aggregates: pd.DataFrame, units: pd.DataFrame, *, per: str = "test",
+                                    k_unit: str = "m/d", confidence: float = 0.95) -> list[dict]:
+    """:func:`unit_statistics` from the per-unit moments of log10 K that a store aggregates.
+
+    Parameters
+    ----------
+    aggregates : DataFrame
+        One row per unit code (column ``group``) as ``Store.aggregate_logk`` gives it for the groups of
+        :func:`unit_groups`: n_tests, n_zones, n_wells, n_values, log10k_mean and log10k_var (K in m/s),
+        k_median_ms, k_min_ms, k_max_ms.
+    units : DataFrame
+        code, name, rank, role, parent.
+
+    Returns
+    -------
+    list of dict
+        The rows of :func:`unit_statistics` (the same keys and order; equal values to rounding: K is converted
+        to ``k_unit`` after the mean of log10 K instead of before).
+    """
+    if per not in PER_CHOICES:
+        raise ParameterError(f"The 'per' parameter must be one of {', '.join(PER_CHOICES)}. Got {per!r} instead.")
+    k_unit = normalize_unit(k_unit, "hydraulic conductivity")
+    factor = float(k_from_ms(1.0, k_unit))
+    shift = math.log10(factor)
+    by_code = {r["group"]: r for r in aggregates.to_dict("records")}
+    rows = []
+    for _, u in units.sort_values("rank").iterrows():
+        a = by_code.get(u["code"])
+        n_tests = int(a["n_tests"]) if a else 0
+        row = {"unit": u["code"], "name": u["name"], "role": u["role"], "rank": int(u["rank"]), "per": per,
+               "n_tests": n_tests, "n_zones": int(a["n_zones"]) if a else 0,
+               "n_wells": int(a["n_wells"]) if a else 0, "k_unit": k_unit}
+        if not n_tests:
+            row.update({key: None for key in ("n_values", "k_geomean", "k_geomean_ci95", "k_median", "k_min",
+                                              "k_max", "log10k_mean", "log10k_var", "log10k_std", "lnk_mean",
+                                              "lnk_var", "lnk_std")})
+            rows.append(row)
+            continue
+        s = log_k_moments_summary(int(a["n_values"]), float(a["log10k_mean"]) + shift, float(a["log10k_var"]),
+                                  median=float(a["k_median_ms"]) * factor, k_min=float(a["k_min_ms"]) * factor,
+                                  k_max=float(a["k_max_ms"]) * factor, confidence=confidence)
         row["n_values"] = s.pop("n")
         row.update(s)
         row["k_geomean_ci95"] = list(row["k_geomean_ci95"])

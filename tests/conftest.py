@@ -82,25 +82,107 @@ def cli(runner, *args):
     return runner.invoke(main, [str(a) for a in args], catch_exceptions=False)
 
 
+def init_store(location, runner, crs: str = CRS):
+    """``hydroatlas init LOCATION --crs CRS`` (a GeoPackage path or a PostGIS URL); returns LOCATION."""
+    result = cli(runner, "init", location, "--crs", crs)
+    assert result.exit_code == 0, result.output
+    return location
+
+
+def fill_mini(location, mini_files, runner):
+    """Import the MINI district into the store at ``location``; returns LOCATION."""
+    for kind in ("units", "wells", "picks", "zones", "ktests", "heads"):
+        result = cli(runner, "import", location, kind, mini_files / f"{kind}.csv")
+        assert result.exit_code == 0, result.output
+    return location
+
+
 @pytest.fixture
 def empty_store(tmp_path, runner) -> Path:
-    path = tmp_path / "store.gpkg"
-    result = cli(runner, "init", path, "--crs", CRS)
-    assert result.exit_code == 0, result.output
-    return path
+    return init_store(tmp_path / "store.gpkg", runner)
 
 
 @pytest.fixture
 def mini_store(empty_store, mini_files, runner) -> Path:
-    for kind in ("units", "wells", "picks", "zones", "ktests", "heads"):
-        result = cli(runner, "import", empty_store, kind, mini_files / f"{kind}.csv")
-        assert result.exit_code == 0, result.output
-    return empty_store
+    return fill_mini(empty_store, mini_files, runner)
+
+
+# GeoPackage stores under names that a module running its tests on both backends does not override
+@pytest.fixture
+def gpkg_empty_store(tmp_path, runner) -> Path:
+    return init_store(tmp_path / "store.gpkg", runner)
+
+
+@pytest.fixture
+def gpkg_mini_store(gpkg_empty_store, mini_files, runner) -> Path:
+    return fill_mini(gpkg_empty_store, mini_files, runner)
 
 
 def require_all() -> bool:
     """CI sets HYDROATLAS_REQUIRE_ALL=1: a missing optional tool is then a failure, not a skip."""
     return os.environ.get("HYDROATLAS_REQUIRE_ALL") == "1"
+
+
+# -- both backends: one parametrised store fixture ------------------------------------------------------------------
+# A store test module runs on the GeoPackage and on PostGIS by taking `any_empty_store` / `any_mini_store`, or by
+# overriding `empty_store` / `mini_store` with them (tests/test_importers.py). The PostGIS side starts a throwaway
+# PostgreSQL cluster once per session (tests/pg_server.py); where PostgreSQL or PostGIS is missing those tests skip
+# with the reason, and HYDROATLAS_REQUIRE_ALL=1 (CI) makes that a failure.
+BACKENDS = ("gpkg", "postgis")
+
+
+def pytest_collection_modifyitems(config, items):
+    """Tests on the PostGIS backend carry the `postgis` marker (`pytest -m "not postgis"` leaves them out)."""
+    for item in items:
+        callspec = getattr(item, "callspec", None)
+        on_server = callspec is not None and callspec.params.get("store_backend") == "postgis"
+        if on_server or "pg_server" in getattr(item, "fixturenames", ()):
+            item.add_marker(pytest.mark.postgis)
+
+
+@pytest.fixture(scope="session")
+def pg_server():
+    import pg_server as pgs
+
+    reason = pgs.missing_reason()
+    if reason is not None:
+        if require_all():
+            pytest.fail(f"the PostGIS tests cannot run: {reason} (.ci/run installs PostgreSQL and PostGIS)")
+        pytest.skip(f"PostGIS tests skipped: {reason}")
+    server = pgs.PGServer.start()
+    yield server
+    server.stop()
+
+
+@pytest.fixture
+def pg_database(pg_server) -> str:
+    """The URL of a fresh PostgreSQL database with PostGIS (dropped after the test)."""
+    url = pg_server.new_database()
+    yield url
+    pg_server.drop_database(url)
+
+
+@pytest.fixture(params=BACKENDS)
+def store_backend(request) -> str:
+    return request.param
+
+
+@pytest.fixture
+def store_location(store_backend, tmp_path, request):
+    """Where a new store goes on the backend under test: a GeoPackage path, or a fresh PostGIS database URL."""
+    if store_backend == "gpkg":
+        return tmp_path / "store.gpkg"
+    return request.getfixturevalue("pg_database")
+
+
+@pytest.fixture
+def any_empty_store(store_location, runner):
+    return init_store(store_location, runner)
+
+
+@pytest.fixture
+def any_mini_store(any_empty_store, mini_files, runner):
+    return fill_mini(any_empty_store, mini_files, runner)
 
 
 # The truth district (tests/truthdistrict.py): fixtures `truth` and `truth_store`.

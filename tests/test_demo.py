@@ -3,6 +3,7 @@
 import filecmp
 import json
 import runpy
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -29,9 +30,14 @@ def demo_store(tmp_path_factory):
     from click.testing import CliRunner
 
     out = tmp_path_factory.mktemp("demo")
-    res = cli(CliRunner(), "demo", "--out", out)
+    res = cli(CliRunner(), "demo", "--out", out, "--format", "json")  # one run checks the report and the document
     assert res.exit_code == 0, res.output
-    assert "Unit statistics" in res.output and "ULS" in res.output
+    assert "Unit statistics" in res.stderr and "ULS" in res.stderr and "Caution: " in res.stderr
+    doc = json.loads(res.stdout)  # --format json: stdout is one JSON document, the report went to stderr
+    assert Path(doc["store"]) == out / "zephyrine.gpkg" and doc["n_findings"] >= 0
+    assert [s["unit"] for s in doc["stats"]] == ["CAP", "ULS", "SHL", "LCL", "BSH"]
+    assert all(Path(p).exists() for key, p in doc["files"].items() if key != "figures")
+    assert doc["files"]["figures"] and all(Path(p).is_file() for p in doc["files"]["figures"])
     return out
 
 

@@ -263,7 +263,8 @@ def test_map_default_unit_and_extent_outline(partial_store, tmp_path, runner):
     res = cli(runner, "map", partial_store, "--out", tmp_path / "map.html")
     assert res.exit_code == 0, res.output
     page = (tmp_path / "map.html").read_text()
-    assert "hydroatlas: DEEP" in page and "Extent of" not in page
+    stem = str(partial_store).rsplit("/", 1)[-1].rsplit(".", 1)[0]
+    assert f"<div class='ha-title'>{stem} - DEEP" in page and "Extent of" not in page
     res = cli(runner, "map", partial_store, "--unit", "PER", "--out", tmp_path / "per.html")
     assert res.exit_code == 0, res.output
     page = (tmp_path / "per.html").read_text()

@@ -1,4 +1,8 @@
-"""Bad input is refused whole, with file, row and column named, exit code 2, and the store unchanged."""
+"""Bad input is refused whole, with file, row and column named, exit code 2, and the store unchanged.
+
+Every test here runs on both backends (the GeoPackage and PostGIS: `mini_store` and `empty_store` are the
+parametrised stores of conftest.py), except those that need the GeoPackage file itself (`gpkg_*` fixtures).
+"""
 
 from __future__ import annotations
 
@@ -13,6 +17,18 @@ from hydroatlas.store import geopackage
 from hydroatlas.store.importers import import_file
 
 from conftest import CRS, MINI, cli, write_csv
+
+
+@pytest.fixture
+def empty_store(any_empty_store):
+    """An empty store on each backend (conftest.py: store_backend)."""
+    return any_empty_store
+
+
+@pytest.fixture
+def mini_store(any_mini_store):
+    """The MINI district on each backend (conftest.py: store_backend)."""
+    return any_mini_store
 
 
 def snapshot(path):
@@ -123,10 +139,12 @@ def test_not_a_store(tmp_path, runner, mini_files):
     assert not (tmp_path / "missing.gpkg").exists()
 
 
-def test_init_refuses_existing_file(empty_store, runner):
+def test_init_refuses_existing_file(empty_store, runner, tmp_path):
+    before = snapshot(empty_store)
     res = cli(runner, "init", empty_store, "--crs", CRS)
     assert res.exit_code == 2 and "already exists" in res.output
-    res = cli(runner, "init", empty_store.parent / "x.gpkg", "--crs", "EPSG:999999")
+    assert snapshot(empty_store) == before
+    res = cli(runner, "init", tmp_path / "x.gpkg", "--crs", "EPSG:999999")
     assert res.exit_code == 2
 
 
@@ -152,10 +170,32 @@ def test_reimport_with_changed_value_updates_and_reports(mini_store, tmp_path, r
     assert len(wells) == 4
 
 
-def test_failure_midway_rolls_back(mini_store, tmp_path, monkeypatch):
+def _heads_rows(days=28):
+    return [MINI["heads.csv"][0]] + [["W1", "P1", f"2025-01-{d:02d}T00:00:00", 290 + d, "", "", ""]
+                                     for d in range(1, days + 1)]
+
+
+def test_failure_after_rows_were_written_rolls_back(mini_store, tmp_path, monkeypatch):
+    """Simulated fault once every row of the file is in its table (logging the import fails): nothing remains."""
+    path = write_csv(tmp_path / "heads.csv", _heads_rows())
+    before = snapshot(mini_store)
+    seen = {}
+
+    def failing_log(self, kind, file, sha256, result):
+        seen["rows"] = self.count("heads")  # inside the transaction: the rows are there
+        raise RuntimeError("simulated failure after the rows were written")
+
+    with open_store(mini_store) as s, pytest.raises(RuntimeError, match="simulated"):
+        monkeypatch.setattr(type(s), "log_import", failing_log)
+        import_file(s, "heads", path)
+    assert seen["rows"] == len(before["heads"]) + 28
+    assert snapshot(mini_store) == before
+
+
+def test_failure_midway_rolls_back(gpkg_mini_store, tmp_path, monkeypatch):
     """Simulated fault after the first chunk of rows was written: the whole file is rolled back."""
-    rows = [MINI["heads.csv"][0]] + [["W1", "P1", f"2025-01-{d:02d}T00:00:00", 290 + d, "", "", ""] for d in range(1, 29)]
-    path = write_csv(tmp_path / "heads.csv", rows)
+    mini_store = gpkg_mini_store
+    path = write_csv(tmp_path / "heads.csv", _heads_rows())
     before = snapshot(mini_store)
     calls = {"n": 0}
     original = geopackage.GeoPackageStore._execute_chunk

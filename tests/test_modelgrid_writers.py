@@ -427,8 +427,9 @@ def test_mf6_refusals(tmp_path):
     _need("flopy", "the MODFLOW 6 writer")
     layers = make_layers()
     with pytest.raises(ParameterError, match=r"1 spring\(s\) lie in the grid: give their drain conductance "
-                                             r"\(--spring-conductance, m2/d\)"):
+                                             r"\(spring_conductance=, m2/d\)") as info:
         write_mf6(tmp_path / "a", layers, springs=SPRINGS)
+    assert info.value.param == "spring_conductance"  # the command line spells it --spring-conductance
     bad = make_layers()
     object.__setattr__(bad, "k", np.where(bad.idomain > 0, -bad.k, bad.k))
     with pytest.raises(ParameterError, match="model array k must be > 0 in every active cell"):

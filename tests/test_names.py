@@ -146,7 +146,7 @@ def test_hostile_unit_code_writes_only_inside_out(mini_store, tmp_path, runner, 
     assert not any(p.name.startswith(".") for p in new)  # no temporary file left behind
     # the map found the surfaces again under the same names: contours and drawdown layers are on it
     page = (out / "map.html").read_text()
-    assert "Head contours of" in page and "Drawdown of the last scenario" in page
+    assert "Head contours of" in page and "(unnamed): drawdown change" in page  # found in the store's registry
 
 
 def test_no_partial_output_when_the_disk_is_full(mini_store, tmp_path, runner, monkeypatch):

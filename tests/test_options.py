@@ -201,7 +201,8 @@ def test_three_wells_spread_out_keep_the_automatic_grid(empty_store, tmp_path, r
     res = cli(runner, "surface", store, "--unit", "AQ", "--method", "idw", "--out", tmp_path / "o")
     assert res.exit_code == 0, res.output
     with rasterio.open(tmp_path / "o" / "AQ_head.tif") as r:
-        assert r.res[0] == pytest.approx(2400 / 200)  # the extent plus a tenth each side, over 200
+        # the extent plus a tenth each side, over 200 (12), rounded down to a readable size (interp.grid.readable_cell)
+        assert r.res[0] == 10.0
 
 
 # -- the library refuses the same values -----------------------------------------------------------------------
@@ -224,6 +225,7 @@ def test_grid_spec_refuses_bad_cells_and_bounds():
     with pytest.raises(ParameterError, match="no extent"):
         auto_cell(5, 5, 5, 5)
     assert auto_cell(0, 0, 400, 100) == 2.0
+    assert auto_cell(0, 0, 560, 100) == 2.5  # 2.8, rounded down to a readable size
     assert spread_rank([[1, 1], [1, 1]]) == 0
     assert spread_rank([[0, 0], [1, 1], [3, 3]]) == 1
     assert spread_rank([[0, 0], [1, 0], [0, 1]]) == 2

@@ -129,6 +129,10 @@ def test_paths_bad_input(flow_store, tmp_path, runner):
     sp = write_csv(tmp_path / "sp.csv", [["spring_id", "x", "y", "elev"], ["S1", X0 + 5000, Y0 + 2000, 280]])
     cli(runner, "import", flow_store, "springs", sp)
     res = cli(runner, "paths", flow_store, "--unit", "AQ", "--porosity", 0.1, "--out", out)
+    # the head surface counts springs of the unit as heads: made before the spring, it is stale now
+    assert res.exit_code == 2 and "AQ_head" in res.output and "springs" in res.output, res.output
+    make_surface(flow_store, out, runner)
+    res = cli(runner, "paths", flow_store, "--unit", "AQ", "--porosity", 0.1, "--out", out)
     assert res.exit_code == 2 and "no recharge area" in res.output
     res = cli(runner, "paths", flow_store, "--unit", "AQ", "--porosity", 0.1, "--k-source", "surface", "--out", out)
     assert res.exit_code == 2 and "--quantity logk" in res.output
@@ -137,10 +141,10 @@ def test_paths_bad_input(flow_store, tmp_path, runner):
 def test_drawdown_scenario(flow_store, tmp_path, runner):
     """The drawdown raster equals Theis (scipy exp1) at each cell; head after pumping = head - drawdown."""
     out = tmp_path / "out"
-    make_surface(flow_store, out, runner)
     wx, wy, q, T, S, days = X0 + 3000.0, Y0 + 2000.0, 1500.0, 400.0, 1e-3, 100.0
     sp = write_csv(tmp_path / "sp.csv", [["spring_id", "x", "y", "elev"], ["S1", wx + 500, wy, 280]])
     cli(runner, "import", flow_store, "springs", sp)
+    make_surface(flow_store, out, runner)  # after the import: a surface made before it would be stale
     res = cli(runner, "drawdown", flow_store, "--unit", "AQ", "--days", days, "-S", S, "-T", T,
               "--new-well", f"P1,{wx},{wy},{q}", "--threshold", 0.01, "--out", out)
     assert res.exit_code == 0, res.output
@@ -240,6 +244,9 @@ def test_stopped_weak_well_is_not_a_sink(flow_store, tmp_path, runner):
     # the spring (no discharge readings: 2 cells, 100 m) takes the 4 of 12 seed rows within 100 m of its line
     assert forward_share(out) == {"spring SPR": pytest.approx(4 / 12), "edge": pytest.approx(8 / 12)}
     add_pumping_well(flow_store, tmp_path, runner, "OLD", wx, wy, [(1, "gpm", "2023-06-01", "")])
+    res = cli(runner, *args)
+    assert res.exit_code == 2 and "pumping" in res.output  # the head surface predates the new record
+    make_surface(flow_store, out, runner)
     res = cli(runner, *args)
     assert res.exit_code == 0, res.output
     side = json.loads((out / "AQ_pathways.json").read_text())

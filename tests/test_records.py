@@ -1,7 +1,8 @@
 """Records are safe: strict CSV reading, stable keys, corrections with history, retirement, schema versions.
 
 Every refused input is checked through the CLI for exit code 2, one message line naming file, row and
-column, and a store unchanged table by table (history included).
+column, and a store unchanged table by table (history included). The tests run on both backends (the
+GeoPackage and PostGIS, conftest.py: store_backend) except those about the GeoPackage file (`gpkg_*` fixtures).
 """
 
 from __future__ import annotations
@@ -19,6 +20,41 @@ from hydroatlas.store.schema import SCHEMA_VERSION
 
 from conftest import CRS, cli, write_csv
 from test_importers import refuse, snapshot
+
+
+@pytest.fixture
+def empty_store(any_empty_store):
+    return any_empty_store
+
+
+@pytest.fixture
+def mini_store(any_mini_store):
+    return any_mini_store
+
+
+def _is_url(store) -> bool:
+    return isinstance(store, str) and store.startswith("postgresql://")
+
+
+def direct_sql(store, *statements, query: str | None = None):
+    """Run SQL on the store's database as another program would (a desktop GIS, psql), outside hydroatlas;
+    return the rows of ``query`` when given."""
+    if _is_url(store):
+        import psycopg
+
+        with psycopg.connect(store) as conn:  # one transaction, committed on leaving
+            for sql in statements:
+                conn.execute(sql)
+            return conn.execute(query).fetchall() if query else None
+    conn = sqlite3.connect(store)
+    register_functions(conn)  # as a GIS does: the spatial-index triggers call the GeoPackage SQL functions
+    try:
+        for sql in statements:
+            conn.execute(sql)
+        conn.commit()
+        return conn.execute(query).fetchall() if query else None
+    finally:
+        conn.close()
 
 
 def write_text(path, text: str):
@@ -202,17 +238,13 @@ def test_retire_unknown_record_or_without_reason(mini_store, runner):
 
 
 def test_history_is_kept_for_direct_edits(mini_store):
-    """A desktop GIS writing to the GeoPackage goes through the same triggers."""
-    with open_store(mini_store) as s:
-        path = s.location
-    conn = sqlite3.connect(path)
-    register_functions(conn)  # as a GIS does: the spatial-index triggers call the GeoPackage SQL functions
-    conn.execute("UPDATE wells SET ground_elev = 299 WHERE well_id = 'W2'")
-    conn.execute("DELETE FROM heads WHERE well_id = 'W3'")
-    conn.commit()
-    rows = conn.execute("SELECT table_name, record_key, action, old_version FROM record_history").fetchall()
-    conn.close()
+    """A desktop GIS (or psql) writing to the store's tables goes through the same triggers, which write the same
+    history rows on both backends (compact JSON keys and versions, as SQLite's json functions write them)."""
+    rows = direct_sql(mini_store, "UPDATE wells SET ground_elev = 299 WHERE well_id = 'W2'",
+                      "DELETE FROM heads WHERE well_id = 'W3'",
+                      query="SELECT table_name, record_key, action, old_version FROM record_history ORDER BY fid")
     assert ("wells", '["W2"]', "update") == rows[0][:3] and json.loads(rows[0][3])["ground_elev"] == 310
+    assert rows[0][3].startswith('{"well_id":"W2","x":612000.0,"y":4100000.0,"ground_elev":310.0,')
     assert rows[1][:3] == ("heads", '["W3","S1","2024-06-01T00:00:00"]', "delete")
 
 
@@ -268,21 +300,26 @@ def test_polygon_without_area_is_refused_and_domain_replacement_is_said(mini_sto
 
 
 # -- schema versions ---------------------------------------------------------------
-def _set_version(path, version):
-    conn = sqlite3.connect(path)
-    conn.execute("UPDATE hydroatlas_settings SET value = ? WHERE key = 'schema_version'", (version,))
-    conn.commit()
-    conn.close()
+def _set_version(store, version):
+    direct_sql(store, f"UPDATE hydroatlas_settings SET value = '{version}' WHERE key = 'schema_version'")
+
+
+def _raw(store):
+    """The file's bytes (GeoPackage) or every row of every table (PostGIS, read past the version check)."""
+    if not _is_url(store):
+        return store.read_bytes()
+    return {t: direct_sql(store, query=f'SELECT * FROM "{t}" ORDER BY 1')
+            for t in ("hydroatlas_settings", "wells", "imports", "record_history")}
 
 
 def test_newer_schema_is_refused(mini_store, tmp_path, runner, mini_files):
     _set_version(mini_store, "99")
-    raw = mini_store.read_bytes()
+    raw = _raw(mini_store)
     for args in (("stats", mini_store), ("import", mini_store, "wells", mini_files / "wells.csv")):
         res = cli(runner, *args)
         assert res.exit_code == 2 and "schema version 99" in res.output and "newer" in res.output, res.output
     assert cli(runner, "upgrade", mini_store).exit_code == 2
-    assert mini_store.read_bytes() == raw
+    assert _raw(mini_store) == raw
 
 
 def _make_version_1(path):
@@ -304,7 +341,8 @@ def _make_version_1(path):
     conn.close()
 
 
-def test_older_schema_asks_for_upgrade_and_upgrade_migrates(mini_store, runner):
+def test_older_schema_asks_for_upgrade_and_upgrade_migrates(gpkg_mini_store, runner):
+    mini_store = gpkg_mini_store
     _make_version_1(mini_store)
     res = cli(runner, "stats", mini_store)
     assert res.exit_code == 2 and "hydroatlas upgrade" in res.output, res.output
@@ -323,15 +361,13 @@ def test_check_finds_a_well_moved_in_a_gis(mini_store, runner):
     """x, y feed the computations; a geometry moved by a GIS that no longer agrees is an error finding."""
     import struct
 
-    with open_store(mini_store) as s:
-        path = s.location
-    conn = sqlite3.connect(path)
-    register_functions(conn)
-    blob = conn.execute("SELECT geom FROM wells WHERE well_id = 'W3'").fetchone()[0]
-    moved = blob[:8] + blob[8:13] + struct.pack("<2d", 610250.0, 4102000.0)  # point WKB: header 5 bytes, x, y
-    conn.execute("UPDATE wells SET geom = ? WHERE well_id = 'W3'", (moved,))
-    conn.commit()
-    conn.close()
+    if _is_url(mini_store):  # PostGIS: as a GIS editing the layer writes it
+        direct_sql(mini_store, "UPDATE wells SET geom = ST_SetSRID(ST_MakePoint(610250, 4102000), 32616) "
+                               "WHERE well_id = 'W3'")
+    else:
+        blob = direct_sql(mini_store, query="SELECT geom FROM wells WHERE well_id = 'W3'")[0][0]
+        moved = blob[:8] + blob[8:13] + struct.pack("<2d", 610250.0, 4102000.0)  # point WKB: header 5 bytes, x, y
+        direct_sql(mini_store, "UPDATE wells SET geom = X'" + moved.hex() + "' WHERE well_id = 'W3'")
     found = [f for f in json.loads(cli(runner, "check", mini_store, "--json").stdout)
              if f["kind"] == "geometry_mismatch"]
     assert len(found) == 1 and found[0]["well_id"] == "W3" and "610250" in found[0]["message"]

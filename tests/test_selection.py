@@ -336,7 +336,13 @@ def test_describe_counts_and_hints():
             {"what": "heads", "well_id": "B", "zone_id": "1", "reason": REASON_EXCLUDED, "count": 1},
             {"what": "heads", "well_id": "C", "zone_id": "2", "reason": "no reading within 5 days of 2024-01-01",
              "count": 4}]
-    assert describe(left) == [
+    assert describe(left) == [  # the library names Python parameters
+        ("note", "3 head readings in 2 wells left out by the selection: 2 quality poor, 1 well left out by "
+                 "exclude_wells; include_poor=True brings them back"),
+        ("warning", "1 zone left out: no reading within 5 days of 2024-01-01 (tolerance_days=DAYS widens the "
+                    "search)")]
+    options = {"include_poor": "--include-poor", "tolerance_days": "--tolerance"}  # as the command line spells them
+    assert describe(left, names=options) == [
         ("note", "3 head readings in 2 wells left out by the selection: 2 quality poor, 1 well left out by "
                  "exclude_wells; --include-poor brings them back"),
         ("warning", "1 zone left out: no reading within 5 days of 2024-01-01 (--tolerance DAYS widens the search)")]

@@ -294,3 +294,134 @@ def test_kill_9_while_committing_leaves_a_whole_store(mini_store, big_heads, run
     proc.send_signal(signal.SIGKILL)
     assert proc.wait(timeout=30) == -signal.SIGKILL
     _check_after_kill(mini_store, before, runner, mini_files, allow_complete=True)
+
+
+# -- PostGIS: several writers on one server store ----------------------------------------------------------------------
+# Sources: PostgreSQL's documentation of transaction isolation (REPEATABLE READ: "a repeatable read transaction
+# cannot modify or lock rows changed by other transactions after the repeatable read transaction began", which
+# fails with SQLSTATE 40001), of INSERT ... ON CONFLICT, and of lock_timeout (SQLSTATE 55P03).
+
+@pytest.fixture
+def pg_mini(pg_database, mini_files, runner):
+    from conftest import fill_mini, init_store
+
+    return fill_mini(init_store(pg_database, runner), mini_files, runner)
+
+
+def _pg_wait_for_lock_wait(url, timeout=60.0):
+    """Until another session of the database waits for a lock (the import met the held row)."""
+    import psycopg
+
+    deadline = time.monotonic() + timeout
+    with psycopg.connect(url, autocommit=True) as conn:
+        while time.monotonic() < deadline:
+            if conn.execute("SELECT count(*) FROM pg_stat_activity WHERE datname = current_database() "
+                            "AND wait_event_type = 'Lock'").fetchone()[0]:
+                return
+            time.sleep(0.05)
+    raise AssertionError("no session came to wait for the held row")
+
+
+def _pg_hold_row(url):
+    """Another writer (psql, a GIS) inside a transaction that changed well W1 and has not committed."""
+    import psycopg
+
+    holder = psycopg.connect(url)
+    holder.execute("UPDATE wells SET ground_elev = 301 WHERE well_id = 'W1'")
+    return holder
+
+
+def _wells_file(path, elev_w1=305.0):
+    rows = [list(r) for r in MINI["wells.csv"]]
+    rows[1][3] = elev_w1
+    pd.DataFrame(rows[1:], columns=rows[0]).to_csv(path, index=False)
+    return path
+
+
+def test_postgis_two_imports_at_once_both_land(pg_mini, tmp_path):
+    """Two imports into one server store at the same time (other wells' readings): neither waits for the other
+    and both commit."""
+    files = [_heads_csv(tmp_path / "heads_w2.csv", 4000, "W2", "S1"),
+             _heads_csv(tmp_path / "heads_w3.csv", 4000, "W3", "S1")]
+    procs = [subprocess.Popen(HYDROATLAS + ["import", pg_mini, "heads", str(f)], stdout=subprocess.PIPE,
+                              stderr=subprocess.PIPE, text=True) for f in files]
+    for p in procs:
+        out, err = p.communicate(timeout=300)
+        assert p.returncode == 0, err
+        assert "4000 new" in out
+    with open_store(pg_mini) as s:
+        assert len(s.read("heads")) == len(MINI["heads.csv"]) - 1 + 8000
+        assert {"heads_w2.csv", "heads_w3.csv"} <= set(s.read("imports")["file"])
+
+
+def test_postgis_same_record_changed_at_once_is_a_clear_error(pg_mini, tmp_path):
+    """An import meets a record that another transaction changed after the import began: it waits for that
+    transaction, then stops with exit 2 and one line naming the record; nothing of it is kept and the other
+    writer's value stands (no silent overwrite)."""
+    path = _wells_file(tmp_path / "wells.csv")
+    with open_store(pg_mini) as s:
+        n_imports = len(s.read("imports"))
+    holder = _pg_hold_row(pg_mini)
+    try:
+        proc = subprocess.Popen(HYDROATLAS + ["import", pg_mini, "wells", str(path)], stdout=subprocess.PIPE,
+                                stderr=subprocess.PIPE, text=True)
+        _pg_wait_for_lock_wait(pg_mini)
+        holder.commit()
+        out, err = proc.communicate(timeout=120)
+    finally:
+        holder.close()
+    assert proc.returncode == 2, (out, err)
+    assert err.count("\n") == 1 and "wells record W1" in err and "nothing of this import was kept" in err, err
+    with open_store(pg_mini) as s:
+        assert s.read("wells").set_index("well_id").loc["W1", "ground_elev"] == 301
+        assert len(s.read("imports")) == n_imports
+    res = subprocess.run(HYDROATLAS + ["import", pg_mini, "wells", str(path)], capture_output=True, text=True)
+    assert res.returncode == 0 and "1 updated" in res.stdout, res.stderr  # run again: it lands
+    with open_store(pg_mini) as s:
+        assert [v["ground_elev"] for v in s.record_versions("wells", "W1")] == [300, 301, 305]
+
+
+def test_postgis_lock_held_too_long_is_a_clear_error(pg_mini, tmp_path, monkeypatch):
+    """A writer that keeps the row past HYDROATLAS_BUSY_TIMEOUT: exit 2 naming the lock; store unchanged."""
+    path = _wells_file(tmp_path / "wells.csv")
+    with open_store(pg_mini) as s:
+        before = s.snapshot()
+    holder = _pg_hold_row(pg_mini)
+    try:
+        env = {**os.environ, gpkg_sql.BUSY_TIMEOUT_ENV: "0.5"}
+        start = time.monotonic()
+        res = subprocess.run(HYDROATLAS + ["import", pg_mini, "wells", str(path)], capture_output=True, text=True,
+                             env=env, timeout=120)
+        waited = time.monotonic() - start
+    finally:
+        holder.rollback()
+        holder.close()
+    assert res.returncode == 2 and LOCKED in res.stderr and "HYDROATLAS_BUSY_TIMEOUT" in res.stderr, res.stderr
+    assert waited >= 0.5
+    with open_store(pg_mini) as s:
+        assert s.snapshot() == before
+
+
+@pytest.mark.slow
+def test_postgis_kill_9_while_importing_leaves_store_as_before(pg_mini, big_heads, runner, mini_files):
+    """SIGKILL of the importing client while the server writes its 300,000 rows: the server rolls the
+    transaction back; every table as before, and the store takes the next import."""
+    import psycopg
+
+    with open_store(pg_mini) as s:
+        before = s.snapshot()
+    proc = _start_import(pg_mini, big_heads)
+    deadline = time.monotonic() + 120
+    with psycopg.connect(pg_mini, autocommit=True) as watch:
+        while not watch.execute("SELECT count(*) FROM pg_stat_activity WHERE datname = current_database() AND "
+                                "(query LIKE 'COPY%%hydroatlas_stage%%' OR query LIKE 'WITH done%%') "
+                                "AND state = 'active'").fetchone()[0]:
+            assert proc.poll() is None, proc.stderr.read()
+            assert time.monotonic() < deadline
+            time.sleep(0.01)
+    proc.send_signal(signal.SIGKILL)
+    assert proc.wait(timeout=30) == -signal.SIGKILL
+    with open_store(pg_mini) as s:
+        assert s.snapshot() == before
+    res = cli(runner, "import", pg_mini, "ktests", mini_files / "ktests.csv")
+    assert res.exit_code == 0, res.output

@@ -40,8 +40,9 @@ def head_at(x, x0):
 
 
 @pytest.fixture
-def feet_store(tmp_path, runner):
-    path = tmp_path / "feet.gpkg"
+def feet_store(store_location, tmp_path, runner):
+    """The feet district on each backend (conftest.py: store_backend): a GeoPackage file or a PostGIS URL."""
+    path = tmp_path / "feet.gpkg" if store_location == tmp_path / "store.gpkg" else store_location
     res = cli(runner, "init", path, "--crs", FT_CRS, "--length-unit", "ft")
     assert res.exit_code == 0 and "lengths in ft" in res.output, res.output
     x0, y0 = _origin()
@@ -212,9 +213,9 @@ def _spring_and_recharge(store, tmp_path, runner, x0, y0):
 def test_paths_sidecar_names_k_with_its_unit(feet_store, tmp_path, runner):
     x0, y0 = _origin()
     heads = tmp_path / "heads"
+    _spring_and_recharge(feet_store, tmp_path, runner, x0, y0)  # first: a surface made before would be stale
     assert cli(runner, "surface", feet_store, "--unit", "AQ", "--method", "idw", "--cell", 250,
                "--out", heads).exit_code == 0
-    _spring_and_recharge(feet_store, tmp_path, runner, x0, y0)
     res = cli(runner, "paths", feet_store, "--unit", "AQ", "--porosity", 0.1, "--surfaces", heads,
               "--capture-radius", "100m", "--out", tmp_path / "p")
     assert res.exit_code == 0, res.output
@@ -328,11 +329,11 @@ def test_logk_surface_read_back_in_its_unit_by_paths_and_grid(feet_store, tmp_pa
 
     x0, y0 = _origin()
     surf = tmp_path / "surf"
+    _spring_and_recharge(feet_store, tmp_path, runner, x0, y0)  # first: surfaces made before would be stale
     for quantity in ("head", "logk"):
         res = cli(runner, "surface", feet_store, "--unit", "AQ", "--quantity", quantity, "--method", "idw",
                   "--cell", 250, "--out", surf)
         assert res.exit_code == 0, res.output
-    _spring_and_recharge(feet_store, tmp_path, runner, x0, y0)
     tables = {}
     for source in ("mean", "surface"):
         out = tmp_path / source

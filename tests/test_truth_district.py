@@ -22,14 +22,12 @@ import pyogrio
 import pytest
 import rasterio
 import shapely
-from click.testing import CliRunner
 from pyproj import CRS, Transformer
 from scipy import stats as sps
 from scipy.special import exp1
 
-from hydroatlas.cli import main
 from hydroatlas.store import open_store
-from truth_fixtures import build_truth_store, copy_store
+from truth_fixtures import build_truth_store, copy_store, ok, run
 from truthdistrict import make_district
 
 UREG = pint.UnitRegistry()
@@ -47,16 +45,6 @@ UK_RMSE_FT = 0.5
 # A head difference of two window medians (each ~0.15 ft noise): 1 ft is over four standard deviations.
 DHEAD_TOL_FT = 1.0
 
-
-def run(*args):
-    """Run the CLI; ``.stdout`` holds what it printed on stdout only (notes go to stderr), ``.output`` both."""
-    return CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
-
-
-def ok(*args):
-    res = run(*args)
-    assert res.exit_code == 0, res.output
-    return res
 
 
 def raster_cells(path, band: int = 1):

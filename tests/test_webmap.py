@@ -326,8 +326,10 @@ def test_demo_map_in_browser(tmp_path):
     rep = _open(tmp_path / "demo" / "map.html", screenshot=shot)
     expected = {"Wells: K of ULS", "Head contours of ULS (m)", "Kriging standard deviation of ULS head",
                 "Flow arrows", "Pumping wells (size by rate)", "Springs", "Recharge areas",
-                "Pathlines (colour by travel time)", "Contributing areas", "Drawdown of the last scenario"}
+                "Pathlines (colour by travel time)", "Contributing areas"}
     assert expected <= set(rep["overlays"]), rep["overlays"]
+    # the demo's named scenario, found in the store's product registry
+    assert "Scenario proposed-wellfield: drawdown change" in rep["overlays"], rep["overlays"]
     assert rep["markers"] > 50 and rep["paths"] > 50
     assert [u for u in rep["requests"] if not u.startswith(("file:", "data:"))] == []
     assert [m for m in rep["console"] if m[0] == "error"] == [] and rep["errors"] == []

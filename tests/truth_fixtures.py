@@ -14,6 +14,18 @@ from hydroatlas.cli import main
 from truthdistrict import Truth, make_district
 
 
+def run(*args):
+    """Run the CLI; ``.stdout`` holds what it printed on stdout only (notes go to stderr), ``.output`` both."""
+    return CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
+
+
+def ok(*args):
+    """Run the CLI and require exit code 0."""
+    res = run(*args)
+    assert res.exit_code == 0, res.output
+    return res
+
+
 def build_truth_store(truth: Truth, path: Path) -> Path:
     """``hydroatlas init`` (store in the truth's length unit and CRS), then ``import`` of each kind in order."""
     runner = CliRunner()

@@ -39,7 +39,10 @@ scales every length and K by 0.3048):
 - K tests lognormal around each unit's true geometric mean (standard deviation
   of log10 K in ``k_log10_sd``); packer tests in the shale;
 - spring SP-1 issues from UD one foot below the regional head there; its
-  discharge responds to the UD head, Q = Q0 exp((h - h_regional) / 6 ft).
+  discharge responds to the UD head, Q = Q0 exp((h - h_regional) / 6 ft); with
+  ``cease_flow_depth`` (a keyword of :func:`make_district`) it follows a power law
+  with a cease-flow head instead, Q = Q0 ((h - h0) / depth)^n, h0 = h_regional - depth,
+  zero below h0 (:meth:`Truth.spring_cease_flow_head` gives h0 as a head of any UD zone).
 """
 
 from __future__ import annotations
@@ -165,6 +168,16 @@ class Truth:
     domain: shapely.Polygon
     recharge: shapely.Polygon
     recharge_id: str
+    spring_cease_flow_depth: float | None = None
+    spring_exponent: float | None = None
+
+    def spring_cease_flow_head(self, x, y) -> np.ndarray:
+        """The cease-flow head of the spring as a head of the UD zone at (x, y) (store length unit): the UD head
+        there when the spring's own head is at its cease-flow level (the time terms are the same across UD).
+        Only with ``cease_flow_depth``."""
+        if self.spring_cease_flow_depth is None:
+            raise ValueError("the district was made without cease_flow_depth: its spring has no cease-flow head")
+        return self.regional_head("UD", x, y) - self.spring_cease_flow_depth
 
     @property
     def length_factor(self) -> float:
@@ -299,7 +312,8 @@ def _num(v: float, nd: int = 3) -> str:
 
 
 def make_district(folder, *, seed: int = 20240610, length_unit: str = "ft", crs: str = DEFAULT_CRS,
-                  discharge_unit: str = "gpm") -> Truth:
+                  discharge_unit: str = "gpm", cease_flow_depth: float | None = None,
+                  spring_exponent: float = 1.5) -> Truth:
     """Write the truth district's files into ``folder`` and return its :class:`Truth`.
 
     Parameters
@@ -315,6 +329,12 @@ def make_district(folder, *, seed: int = 20240610, length_unit: str = "ft", crs:
         A projected CRS in US survey feet whose area of use holds :data:`LONLAT_BOX`.
     discharge_unit : {"gpm", "cfs"}
         Unit of the spring discharge file.
+    cease_flow_depth : float, optional
+        Feet. When given, the spring's discharge is Q0 ((h - h0) / depth)^n with h0 = h_regional - depth (zero
+        below h0; n = ``spring_exponent``) instead of the default exponential response; the same Q0 = 1.8 cfs at
+        the regional head.
+    spring_exponent : float
+        The exponent n of that power law.
     """
     if length_unit not in ("ft", "m"):
         raise ValueError(f"length_unit must be 'ft' or 'm'; got {length_unit!r}")
@@ -557,7 +577,11 @@ def make_district(folder, *, seed: int = 20240610, length_unit: str = "ft", crs:
     q_dates = pd.DatetimeIndex([d.replace(day=20, hour=9) for d in pd.date_range("2019-01-01", periods=60,
                                                                                    freq="MS")])
     h_spring = TIME_FACTOR["UD"] * _time_term(q_dates)  # head above the regional head at the spring
-    q_cfs = 1.8 * np.exp(h_spring / 6.0) * (1.0 + rng.normal(0.0, 0.03, len(q_dates)))
+    if cease_flow_depth is None:
+        q_cfs = 1.8 * np.exp(h_spring / 6.0) * (1.0 + rng.normal(0.0, 0.03, len(q_dates)))
+    else:  # a power law with a cease-flow head depth ft below the regional head at the spring
+        above = np.maximum(h_spring + float(cease_flow_depth), 0.0) / float(cease_flow_depth)
+        q_cfs = 1.8 * above ** float(spring_exponent) * (1.0 + rng.normal(0.0, 0.03, len(q_dates)))
     q_out = q_cfs if discharge_unit == "cfs" else q_cfs / GPM_IN_CFS
     discharge_rows = [["SP-1", d.strftime("%Y-%m-%dT%H:%M:%S"), f"{q:.4g}", discharge_unit]
                       for d, q in zip(q_dates, q_out)]
@@ -614,4 +638,6 @@ def make_district(folder, *, seed: int = 20240610, length_unit: str = "ft", crs:
         partial_penetrations=MappingProxyType({c: tuple(v) for c, v in part_pen.items()}),
         poor_readings=poor_readings, spring_id="SP-1", spring_unit="UD", spring_xy=(sx, sy),
         spring_elev=spring_elev * L, discharge_unit=discharge_unit, domain=domain, recharge=recharge,
-        recharge_id="RCH-1")
+        recharge_id="RCH-1",
+        spring_cease_flow_depth=None if cease_flow_depth is None else float(cease_flow_depth) * L,
+        spring_exponent=None if cease_flow_depth is None else float(spring_exponent))

@@ -9,7 +9,7 @@ Exit codes: 0 success, 2 bad usage or bad input (one-line message on stderr),
 
 from __future__ import annotations
 
-from . import analysis, outputs, pathways, store, surfaces  # noqa: F401 - each registers its commands on main
+from . import analysis, copy, hydrographs, outputs, pathways, products, springs, store, surfaces  # noqa: F401 - each registers its commands on main
 from ._common import (  # noqa: F401 - the names other code and the tests use
     ANGLE,
     CAUTION,

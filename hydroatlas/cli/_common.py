@@ -15,6 +15,7 @@ from contextlib import contextmanager
 
 import click
 
+from ..cautions import CAUTION, help_paragraph  # noqa: F401 - CAUTION: the one text, kept for callers
 from ..errors import HydroatlasError, ParameterError
 
 
@@ -55,23 +56,106 @@ def convert(*args, **kwargs):
 KINDS = ("units", "wells", "picks", "zones", "ktests", "heads", "pumping", "springs", "discharge", "areas",
          "slugtests", "sluggeometry", "transducer")
 PER_CHOICES = ("test", "zone", "well")
-SURFACE_QUANTITIES = ("head", "logk", "dhead")
+SURFACE_QUANTITIES = ("head", "logk", "dhead", "change")
 SURFACE_METHODS = ("kriging", "uk", "idw")
 SLUG_METHODS = ("auto", "hvorslev", "bouwer-rice", "cbp", "oscillating")
 
-CAUTION = ("Results are screening-level estimates for planning and model set-up, not a substitute for "
-           "site-specific investigation or for the judgement of a licensed professional geoscientist or "
-           "engineer; well construction, testing and pumping are governed by local rules and permits.")
-
 _FORMATS = click.Choice(["table", "csv", "json"])
+
+
+def _remember_format(ctx, param, value):
+    """Click callback of --format: kept on the root context, so that progress bars stay off with json."""
+    root = ctx.find_root()
+    if isinstance(root.obj, dict):
+        root.obj["format"] = value
+    return value
+
+
+def format_option(f=None, *, default: str | None = "table"):
+    """--format table|csv|json, declared once for every command that reports results.
+
+    json prints one JSON document on stdout (the facts the table shows: counts, files written, selection,
+    warnings); notes, warnings and progress stay on stderr (progress bars are off with json).
+    """
+    def deco(f):
+        return click.option("--format", "fmt", type=_FORMATS, default=default, show_default=default is not None,
+                            callback=_remember_format,
+                            help="table (for people), csv, or json (one JSON document on stdout).")(f)
+
+    return deco if f is None else deco(f)
+
+
+def with_caution(product: str = "general"):
+    """Put the caution of ``product`` (:func:`hydroatlas.cautions.help_paragraph`) into a command's --help,
+    before its example (decorate below ``@main.command()``)."""
+    def deco(f):
+        import inspect
+
+        text = inspect.cleandoc(f.__doc__ or "")
+        head, sep, example = text.partition("\n\nExample:")
+        f.__doc__ = f"{head}\n\n{help_paragraph(product)}" + (f"{sep}{example}" if sep else "")
+        return f
+
+    return deco
+
+
+# library parameters whose option is spelled otherwise than the parameter (the rest: the current command's
+# option of that name, else --name-with-dashes)
+_OPTION_OF_PARAM = {"tolerance_days": "--tolerance", "rates": "--rate", "new_wells": "--new-well",
+                    "range_": "--range"}
+
+
+def option_name(param: str, command: click.Command | None = None) -> str:
+    """The command-line spelling of a library parameter named in an error or note (``cell`` -> ``--cell``).
+
+    The command's own option whose Python name is ``param`` (``command`` or the current one), else
+    :data:`_OPTION_OF_PARAM`, else ``--`` and the name with dashes. Library messages name parameters as
+    ``name=`` (:meth:`hydroatlas.errors.HydroatlasError.renamed`); this turns them back into options.
+    """
+    if command is None:
+        ctx = click.get_current_context(silent=True)
+        command = ctx.command if ctx is not None else None
+    for p in getattr(command, "params", ()):
+        if isinstance(p, click.Option) and p.name == param:
+            longs = [o for o in p.opts if o.startswith("--")]
+            return (longs or p.opts)[0]
+    return _OPTION_OF_PARAM.get(param, "--" + param.strip("_").replace("_", "-"))
+
+
 # Defaults used (with a warning) when a scenario parameter is not given; common practice, not site values.
 DEFAULT_POROSITY = 0.1
 DEFAULT_STORATIVITY = 1e-4
 
 # options shared by several commands, declared once
 surfaces_option = click.option("--surfaces", default=None, type=click.Path(file_okay=False),
-                               help="Folder of the surfaces and layers.gpkg made by 'surface' and 'paths' "
-                                    "(default: the output folder).")
+                               help="Deprecated (kept for one release): inputs now come from the store's product "
+                                    "registry ('hydroatlas products STORE'); this only narrows the search to "
+                                    "products whose files lie in this folder.")
+allow_stale_option = click.option("--allow-stale", is_flag=True,
+                                  help="Use a recorded product (surface, scenario...) even though store rows it "
+                                       "was made from changed since; said on stderr and in the outputs. By "
+                                       "default such a product is refused with the command that remakes it.")
+
+
+def surface_option(f=None, *, multiple: bool = False, what: str = "head"):
+    """--surface NAME: the recorded surface product to use instead of the latest of the unit."""
+    def deco(f):
+        more = " (repeat it: one per unit and quantity)" if multiple else ""
+        return click.option("--surface", "surface", multiple=multiple, default=None, metavar="NAME",
+                            help=f"Name of the {what} surface product to use{more}, as listed by 'hydroatlas "
+                                 "products STORE' (default: the latest recorded for the unit).")(f)
+
+    return deco if f is None else deco(f)
+
+
+def _say_stale(texts) -> list[str]:
+    """Warnings on stderr for stale products used with --allow-stale; returns them for --format json."""
+    out = []
+    for text in texts or ():
+        line = text.replace("(allow_stale=True)", "(--allow-stale)")
+        click.echo(f"warning: {line}", err=True)
+        out.append(line)
+    return out
 
 
 # -- option values: declared constraints, refused with exit code 2 and one line that names the option ------------
@@ -320,7 +404,7 @@ def _wells_value(ctx, param, value):
     try:
         SelectionPolicy(exclude_wells=_well_ids(value))
     except ParameterError as exc:
-        raise _OptionError(str(exc), ctx=ctx, param=param) from None
+        raise _OptionError(exc.renamed(lambda name: option_name(name, ctx.command)), ctx=ctx, param=param) from None
     return value
 
 
@@ -360,20 +444,23 @@ def _tolerance_days(value) -> float:
     return float(_in_units(value, "time", "d", default_unit="d"))
 
 
-def _say_selection(selection: dict | None, only: str | None = None) -> None:
+def _say_selection(selection: dict | None, only: str | None = None) -> list[str]:
     """What a selection left out, on stderr: one note per kind of record ("heads" or "ktests"; ``only`` keeps
-    one kind), and a warning for zones without a reading near --at."""
+    one kind), and a warning for zones without a reading near --at. Returns the warnings (for --format json)."""
     from ..selection import describe
 
     entries = [e for e in (selection or {}).get("left_out") or [] if only is None or e["what"] == only]
-    for level, text in describe(entries):
+    warnings = []
+    for level, text in describe(entries, names=option_name):
         if level == "note":
             _note(text)
         else:
             click.echo(f"{level}: {text}", err=True)
+            warnings.append(text)
     for e in entries:  # -v: each well and zone behind the counts above
         zone = f" zone {e['zone_id']}" if e.get("zone_id") else ""
         _detail(f"{e['what']} left out at well {e['well_id']}{zone}: {e['reason']} ({e['count']})")
+    return warnings
 
 
 # -- -q/--quiet and -v/--verbose of the main group -----------------------------------------------------------------
@@ -406,7 +493,9 @@ class _Group(click.Group):
         except HydroatlasError as exc:
             if ctx.obj and ctx.obj.get("debug"):
                 traceback.print_exc()
-            click.echo(f"hydroatlas: error: {exc}", err=True)
+            sub = self.get_command(ctx, ctx.invoked_subcommand) if ctx.invoked_subcommand else None
+            # the library names its parameters (cell=); the command line names its options (--cell)
+            click.echo(f"hydroatlas: error: {exc.renamed(lambda name: option_name(name, sub))}", err=True)
             ctx.exit(2)
         except (click.exceptions.Exit, click.ClickException, click.exceptions.Abort):
             raise
@@ -429,7 +518,8 @@ class _Group(click.Group):
 def main(ctx, quiet, verbose, debug):
     """hydroatlas: a spatial store and mapper of hydrostratigraphic properties.
 
-    The store (a GeoPackage file) is the first argument of every command.
+    The store (a GeoPackage file, or a postgresql://user@host/database URL of a PostGIS store) is the first
+    argument of every command.
     """
     if quiet and verbose:
         raise _OptionError("-q/--quiet and -v/--verbose exclude each other: give one")
@@ -461,17 +551,103 @@ def _emit(frame: pd.DataFrame, fmt: str, records=None):
                    if not frame.empty else "(nothing to show)")
 
 
+def _plain(value):
+    """``value`` with paths, dates, tables and sets made JSON values (numbers are left to :func:`_json_safe`)."""
+    import os
+
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, (set, frozenset)):
+        return sorted(_plain(v) for v in value)
+    if isinstance(value, os.PathLike):
+        return os.fspath(value)
+    if isinstance(value, pd.DataFrame):
+        return _plain(value.to_dict(orient="records"))
+    if isinstance(value, (pd.Timestamp, pd.Timedelta)):
+        return None if pd.isna(value) else value.isoformat()
+    return value
+
+
+def _flat(facts: dict, prefix: str = "") -> dict:
+    """One CSV row of ``facts``: nested keys joined by '.', lists as JSON text."""
+    row = {}
+    for key, value in facts.items():
+        if isinstance(value, dict):
+            row.update(_flat(value, f"{prefix}{key}."))
+        elif isinstance(value, list):
+            row[f"{prefix}{key}"] = json.dumps(value)
+        else:
+            row[f"{prefix}{key}"] = value
+    return row
+
+
+def _report(fmt: str, facts: dict, rows=None) -> None:
+    """The result of a command for ``--format csv`` or ``json`` (``table`` is the command's own lines).
+
+    json: ``facts`` as one JSON document on stdout. csv: ``rows`` (a DataFrame or list of dicts) where the
+    command has a table of its own, else ``facts`` as one row (nested keys joined by '.', lists as JSON text).
+    """
+    facts = _json_safe(_plain(facts))
+    if fmt == "json":
+        click.echo(json.dumps(facts, indent=2))
+        return
+    if rows is None:
+        frame = pd.DataFrame([_flat(facts)])
+    elif isinstance(rows, pd.DataFrame):
+        frame = rows
+    else:
+        frame = pd.DataFrame(_json_safe(_plain(list(rows))))
+    click.echo(frame.to_csv(index=False), nl=False)
+
+
+def _format() -> str | None:
+    """The --format of the running command (None outside a command or before it is read)."""
+    ctx = click.get_current_context(silent=True)
+    root = ctx.find_root() if ctx is not None else None
+    return root.obj.get("format") if root is not None and isinstance(root.obj, dict) else None
+
+
+def _show_progress() -> bool:
+    """Progress bars only on a terminal (stderr), never with -q/--quiet or --format json."""
+    return sys.stderr.isatty() and _verbosity() >= 0 and _format() != "json"
+
+
 def _progress(label, unit=" rows"):
-    """A progress bar on a terminal; silent when stderr is not a terminal."""
+    """A progress bar on a terminal; silent when stderr is not a terminal, with -q or with --format json."""
     from tqdm import tqdm
 
-    return tqdm(desc=label, unit=unit, disable=not sys.stderr.isatty() or _verbosity() < 0, leave=False)
+    return tqdm(desc=label, unit=unit, disable=not _show_progress(), leave=False)
+
+
+class _Progress:
+    """The progress callback a command hands to the library: ``progress(n)`` adds n done; the library sets
+    ``progress.total`` (the whole job's count) first where it knows it, so the bar shows how far along it is."""
+
+    def __init__(self, bar):
+        self.bar = bar
+
+    def __call__(self, n: int = 1) -> None:
+        self.bar.update(n)
+
+    update = __call__
+
+    @property
+    def total(self):
+        return self.bar.total
+
+    @total.setter
+    def total(self, value) -> None:
+        self.bar.total = value
+        self.bar.refresh()
 
 
 @contextmanager
-def _progress_bar(label):
-    bar = _progress(label)
+def _progress_bar(label, unit=" rows"):
+    """A :class:`_Progress` over :func:`_progress`, closed at the end."""
+    bar = _progress(label, unit)
     try:
-        yield bar
+        yield _Progress(bar)
     finally:
         bar.close()

@@ -6,7 +6,6 @@ from ._common import (
     HydroatlasError,
     PER_CHOICES,
     SLUG_METHODS,
-    _FORMATS,
     _date_value,
     _emit,
     _policy,
@@ -14,7 +13,7 @@ from ._common import (
     _tolerance_days,
     _window_value,
     click,
-    json,
+    format_option,
     k_unit_option,
     main,
     math,
@@ -32,7 +31,7 @@ from ._common import (
 @k_unit_option
 @click.option("--per", type=click.Choice(PER_CHOICES), default="test", show_default=True,
               help="What counts once: every test, the log-mean of each zone, or of each well.")
-@click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
+@format_option
 @click.option("--exclude-straddles", is_flag=True, help="Leave out zones that cross units.")
 @click.option("--exclude-poor", is_flag=True,
               help="Leave out tests of quality 'poor'. This is now the default (kept so that old scripts work); "
@@ -87,7 +86,7 @@ def stats(store, unit, k_unit, per, fmt, exclude_straddles, exclude_poor, by_wel
               help="Date: the reading nearest to it, per zone (instead of --window).")
 @tolerance_option
 @click.option("--profiles", is_flag=True, help="Print the head profile of each multi-zone well instead of pairs.")
-@click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
+@format_option
 @selection_options
 def verticals(store, window, at, tolerance, profiles, fmt, include_poor, include_pumping_wells, exclude_wells):
     """Head differences, vertical gradients and aquitard leakage at multi-zone wells.
@@ -115,7 +114,7 @@ def verticals(store, window, at, tolerance, profiles, fmt, include_poor, include
 @click.option("--window", default=None, callback=_window_value, help="ISO 8601 interval FROM/TO for heads.")
 @click.option("--at", default=None, callback=_date_value, help="Date: the reading nearest to it.")
 @tolerance_option
-@click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
+@format_option
 @selection_options
 def threepoint(store, unit, wells, window, at, tolerance, fmt, include_poor, include_pumping_wells, exclude_wells):
     """Hydraulic gradient and flow direction from the heads of three wells (plane through three points).
@@ -140,7 +139,7 @@ def threepoint(store, unit, wells, window, at, tolerance, fmt, include_poor, inc
 @click.option("--no-write", is_flag=True, help="Only report; do not store the K values as K tests.")
 @click.option("--figures", "figures_dir", default=None, type=click.Path(file_okay=False),
               help="Folder for one figure per test (normalised head against time, repeats overlaid).")
-@click.option("--format", "fmt", type=_FORMATS, default="table", show_default=True)
+@format_option
 def slugs(store, method, no_write, figures_dir, fmt):
     """Reduce slug-test records to K and store one K test per physical test.
 

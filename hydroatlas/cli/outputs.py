@@ -11,14 +11,20 @@ from ._common import (
     _Pair,
     _in_units,
     _policy,
+    _report,
     _say_selection,
+    _say_stale,
+    allow_stale_option,
     _store_units,
     click,
+    format_option,
     k_unit_option,
     main,
     open_store,
     selection_options,
+    surface_option,
     surfaces_option,
+    with_caution,
     workflows,
 )
 
@@ -29,43 +35,65 @@ from ._common import (
               help="Unit whose K, head contours, extent and results are shown (default: the aquifer with the most "
                    "zones with heads).")
 @k_unit_option
+@surface_option
+@click.option("--scenario", "scenarios", multiple=True, metavar="NAME",
+              help="Show the drawdown of this scenario ('drawdown --name NAME', or a scenario's product name; may "
+                   "be repeated); default: every scenario of the unit recorded in the store.")
+@allow_stale_option
 @surfaces_option
 @click.option("--tiles", default=None, help="Basemap URL template (needs internet); none by default.")
+@click.option("--title", default=None, help="Title of the map (default: the store's name and the unit).")
 @click.option("--out", default="map.html", show_default=True, type=click.Path(dir_okay=False))
 @selection_options
-def map_(store, unit, k_unit, surfaces, tiles, out, include_poor, include_pumping_wells, exclude_wells):
+@format_option
+@with_caution("map")
+def map_(store, unit, k_unit, surface, scenarios, allow_stale, surfaces, tiles, title, out, include_poor,
+         include_pumping_wells, exclude_wells, fmt):
     """One self-contained HTML web map that works offline.
 
-    Wells coloured by K, head contours, flow arrows, kriging standard deviation,
-    pumping wells sized by rate, springs, recharge areas, pathlines coloured by
-    travel time, contributing areas and drawdown contours, each switchable.
-
-    Caution: results are screening-level estimates for planning and model set-up,
-    not a substitute for site-specific investigation or for the judgement of a
-    licensed professional geoscientist or engineer; well construction, testing and
-    pumping are governed by local rules and permits.
+    Wells coloured by K with a ring by kind, head contours, flow arrows, kriging
+    standard deviation, the log-K surface, pumping wells sized by rate, springs
+    (discharge in the popup), recharge areas, pathlines coloured by travel time,
+    contributing areas, labelled drawdown contours and proposed wells, each
+    switchable; a title, the head window and the scenario in a panel, a legend
+    entry per layer, a north arrow and a scale bar in the store's unit.
     """
+    stale = []
     with open_store(store) as s:
         path = workflows.build_map(s, unit=unit, out=out, surfaces=surfaces, k_unit=k_unit, tiles=tiles,
-                                   policy=_policy(include_poor, include_pumping_wells, exclude_wells))
+                                   policy=_policy(include_poor, include_pumping_wells, exclude_wells), title=title,
+                                   surface=surface, scenarios=list(scenarios) or None, allow_stale=allow_stale,
+                                   warnings=stale)
+    _say_stale(stale)
+    if fmt != "table":
+        _report(fmt, {"files": {"map": path}})
+        return
     click.echo(f"map: {path}")
 
 
 @main.command()
 @click.argument("store")
 @k_unit_option
+@allow_stale_option
 @surfaces_option
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False))
 @selection_options
-def layers(store, k_unit, surfaces, out, include_poor, include_pumping_wells, exclude_wells):
+@format_option
+def layers(store, k_unit, allow_stale, surfaces, out, include_poor, include_pumping_wells, exclude_wells, fmt):
     """Vector layers to OUT/layers.gpkg and OUT/geojson/*.geojson (RFC 7946, WGS 84).
 
     wells (with per-unit K columns), zones (points at mid-depth), head contours, and
     the flow arrows, pathlines and contributing areas made by 'surface' and 'paths'.
     """
     with open_store(store) as s:
-        files = workflows.export_layers(s, out=out, surfaces=surfaces, k_unit=k_unit,
+        stale = []
+        files = workflows.export_layers(s, out=out, surfaces=surfaces, k_unit=k_unit, allow_stale=allow_stale,
+                                        warnings=stale,
                                         policy=_policy(include_poor, include_pumping_wells, exclude_wells))
+    _say_stale(stale)
+    if fmt != "table":
+        _report(fmt, {"files": files}, rows=[{"kind": k, "path": v} for k, v in files.items()])
+        return
     for kind, path in files.items():
         click.echo(f"  {kind}: {path}")
 
@@ -73,16 +101,35 @@ def layers(store, k_unit, surfaces, out, include_poor, include_pumping_wells, ex
 @main.command()
 @click.argument("store")
 @k_unit_option
+@allow_stale_option
 @surfaces_option
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False))
+@click.option("--map", "board_map", is_flag=True,
+              help="Also the static map for reports, OUT/map_<unit>.png, .svg and .pdf: the web map's layers with "
+                   "a title, legend, scale bar in the store's unit, north arrow and the caution line.")
+@click.option("--unit", default=None, help="Unit of the --map figure (default: as the map command's).")
+@click.option("--title", default=None, help="Title of the --map figure (default: the store's name and the unit).")
 @selection_options
-def figures(store, k_unit, surfaces, out, include_poor, include_pumping_wells, exclude_wells):
+@format_option
+def figures(store, k_unit, allow_stale, surfaces, out, board_map, unit, title, include_poor, include_pumping_wells,
+            exclude_wells, fmt):
     """PNG and SVG figures: head against elevation at each multi-zone well (units as bands, head
     difference across each aquitard), log10 K per unit with the geometric mean and its 95 % CI,
-    fitted over experimental variograms, and leave-one-out cross-validation of each surface."""
+    fitted over experimental variograms, and leave-one-out cross-validation of each surface; with
+    --map, the static map for reports as PNG, SVG and PDF."""
+    if (unit is not None or title is not None) and not board_map:
+        raise click.UsageError("--unit and --title apply to the --map figure; add --map")
     with open_store(store) as s:
+        stale = []
         files = workflows.make_figures(s, out=out, surfaces=surfaces, k_unit=k_unit,
-                                       policy=_policy(include_poor, include_pumping_wells, exclude_wells))
+                                       policy=_policy(include_poor, include_pumping_wells, exclude_wells),
+                                       board_map=board_map, unit=unit, title=title, allow_stale=allow_stale,
+                                       warnings=stale)
+    _say_stale(stale)
+    if fmt != "table":
+        _report(fmt, {"n_files": len(files), "folder": out, "files": list(files)},
+                rows=[{"file": f} for f in files])
+        return
     click.echo(f"{len(files)} files in {out}")
 
 
@@ -117,23 +164,23 @@ def figures(store, k_unit, surfaces, out, include_poor, include_pumping_wells, e
 @click.option("--spring-conductance", type=Quantity("transmissivity", POSITIVE, metavar="C[UNIT]"), default=None,
               help="Drain conductance of each spring cell in the --mf6 simulation, length squared per day (store "
                    "units, e.g. 1000 or 500m2/d); needed when a spring lies in the grid, no default.")
+@surface_option(multiple=True, what="head or log-K")
+@allow_stale_option
 @surfaces_option
 @click.option("--max-cells", type=COUNT, default=None, help="Refuse grids larger than this (default 20,000,000).")
 @click.option("--out", default="model.nc", show_default=True, type=click.Path(dir_okay=False))
 @selection_options
+@format_option
+@with_caution("model_grid")
 def grid(store, cell, origin, shape, rotation, layers, kv_ratio, k_source, min_thickness, merge_down, base,
-         base_thickness, mf6, spring_conductance, surfaces, max_cells, out, include_poor, include_pumping_wells,
-         exclude_wells):
+         base_thickness, mf6, spring_conductance, surface, allow_stale, surfaces, max_cells, out, include_poor,
+         include_pumping_wells, exclude_wells, fmt):
     """Model-ready grid: one layer per unit with top, bottom, K_h, K_v and starting heads.
 
     Writes FILE.nc (NetCDF, CF-1.8), a folder FILE_arrays/ with one .npy and one
     text file per layer and variable, and manifest.json beside it. K is in the
     store's length unit per day. With --mf6 DIR, also a MODFLOW 6 simulation
     (steady state; springs as drains with --spring-conductance).
-
-    Caution: results are screening-level estimates for planning and model set-up,
-    not a substitute for site-specific investigation or for the judgement of a
-    licensed professional geoscientist or engineer.
 
     Example: hydroatlas grid district.gpkg --cell 250 --layers CAP,ULS,SHL,LCL --out model/district.nc
     """
@@ -149,13 +196,30 @@ def grid(store, cell, origin, shape, rotation, layers, kv_ratio, k_source, min_t
                                    kv_ratio=kv_ratio, k_source=k_source, min_thickness=min_thickness,
                                    merge_down=merge_down, base=base, base_thickness=base_thickness, mf6=mf6,
                                    spring_conductance=spring_conductance,
-                                   surfaces=surfaces, max_cells=max_cells,
+                                   surfaces=surfaces, max_cells=max_cells, surface=list(surface) or None,
+                                   allow_stale=allow_stale,
                                    policy=_policy(include_poor, include_pumping_wells, exclude_wells))
-    _say_selection(res.get("selection"))
+    warnings = _say_stale(res.get("stale_inputs_used"))
+    warnings += _say_selection(res.get("selection"))
     for note in res.get("notes", []):
         if note.startswith("warning: "):
             click.echo(note, err=True)
+            warnings.append(note[len("warning: "):])
     nl, nr, nc = res["shape"]
+    if fmt != "table":
+        m6 = res.get("mf6")
+        for w in (m6 or {}).get("wells_left_out", []):  # on stderr as with the table; in the document too
+            click.echo(f"left out of WEL: well {w['well_id']} zone {w['zone_id']}: {w['reason']}", err=True)
+        for sp in (m6 or {}).get("springs_left_out", []):
+            click.echo(f"left out of DRN: spring {sp['spring_id']}: {sp['reason']}", err=True)
+        _report(fmt, {"shape": {"layers": nl, "rows": nr, "columns": nc}, "layers": res["layers"],
+                      "files": res["files"], "notes": res.get("notes", []), "selection": res.get("selection"),
+                      "warnings": warnings,
+                      "mf6": None if not m6 else {k: m6.get(k) for k in ("name", "folder", "wells", "springs",
+                                                                       "wells_left_out", "springs_left_out",
+                                                                       "spring_conductance",
+                                                                       "spring_conductance_unit", "rate_unit")}})
+        return
     click.echo(f"model grid: {nl} layers ({', '.join(res['layers'])}) x {nr} rows x {nc} columns")
     for kind, path in res["files"].items():
         click.echo(f"  {kind}: {path}")

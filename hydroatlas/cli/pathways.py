@@ -18,27 +18,35 @@ from ._common import (
     _in_crs_units,
     _in_units,
     _policy,
+    _report,
     _say_selection,
+    _say_stale,
+    allow_stale_option,
     _store_units,
     click,
     convert,
+    format_option,
     main,
     open_store,
     selection_options,
+    surface_option,
     surfaces_option,
+    with_caution,
     workflows,
 )
 
 
 @main.command()
 @click.argument("store")
-@click.option("--unit", required=True, help="Unit code (its head surface must exist).")
+@click.option("--unit", required=True, help="Unit code (a head surface of it must be recorded in the store).")
 @click.option("--porosity", type=FRACTION, default=None,
               help=f"Effective porosity n_e, in (0, 1] (default {DEFAULT_POROSITY}, with a warning: give the "
                    "value for your rock).")
 @click.option("--backward", is_flag=True, help="Track backward from the springs and outline contributing areas.")
 @click.option("--k-source", type=click.Choice(["mean", "surface"]), default="mean", show_default=True,
               help="K from the unit's geometric mean or from its log-K surface.")
+@surface_option(multiple=True, what="head or log-K")
+@allow_stale_option
 @surfaces_option
 @click.option("--seed-spacing", type=Quantity("length", POSITIVE), default=None,
               help="Spacing of seeds in recharge areas (CRS units, or a length with its unit, e.g. 100ft).")
@@ -48,19 +56,22 @@ from ._common import (
                    "Tsang 1986, kept between a quarter cell and a quarter of the grid; 2 cells for a spring "
                    "without discharge readings).")
 @click.option("--scenario", default=None,
-              help="Trace on the head surface of the drawdown scenario NAME ('drawdown --name NAME', files "
-                   "<unit>_head_<NAME>.tif and <unit>_drawdown_<NAME>.json in the surfaces folder), with its "
-                   "proposed wells as sinks.")
+              help="Trace on the head surface of the drawdown scenario NAME ('drawdown --name NAME', or the "
+                   "product name of a scenario, as 'hydroatlas products STORE' lists it), with its proposed "
+                   "wells as sinks.")
 @click.option("--max-years", type=Quantity("time", POSITIVE), default=1000.0, show_default=True,
               help="Longest travel time tracked, in years (or with a time unit, e.g. 500d).")
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False), help="Output folder.")
 @selection_options
-def paths(store, unit, porosity, backward, k_source, surfaces, seed_spacing, capture_radius, scenario, max_years,
-          out, include_poor, include_pumping_wells, exclude_wells):
+@format_option
+@with_caution("pathways")
+def paths(store, unit, porosity, backward, k_source, surface, allow_stale, surfaces, seed_spacing, capture_radius,
+          scenario, max_years, out, include_poor, include_pumping_wells, exclude_wells, fmt):
     """Likely pathways from recharge areas to springs, pumping wells or the domain edge.
 
     Particles move with the Darcy seepage velocity v = K i / n_e on the unit's head
-    surface (made by 'hydroatlas surface --quantity head'), integrated by an adaptive
+    surface (made by 'hydroatlas surface --quantity head' and recorded in the store:
+    the latest, or --surface NAME), integrated by an adaptive
     Dormand-Prince 5(4) scheme. Forward: seeds over each recharge area. --backward:
     paths from each spring and its contributing area. Sinks are the springs and the
     wells pumping at the end of the head window (stopped wells are not sinks), each
@@ -68,35 +79,41 @@ def paths(store, unit, porosity, backward, k_source, surfaces, seed_spacing, cap
     contributing_areas) layers of OUT/layers.gpkg and OUT/<unit>_pathways.csv
     (backward: OUT/<unit>_pathways_backward.csv; --scenario NAME adds _NAME).
 
-    Caution: results are screening-level estimates for planning and model set-up,
-    not a substitute for site-specific investigation or for the judgement of a
-    licensed professional geoscientist or engineer; well construction, testing and
-    pumping are governed by local rules and permits. Particle paths on a smooth head
-    surface do not see conduits, faults or barriers; in karst, Darcy travel times are
-    upper bounds and conduit flow can be orders of magnitude faster.
-
     Example: hydroatlas paths district.gpkg --unit ULS --porosity 0.02 --out maps/
     """
+    warnings = []
     if porosity is None:
         porosity = DEFAULT_POROSITY
-        click.echo(f"warning: --porosity not given; using n_e = {DEFAULT_POROSITY} (travel times scale with n_e: "
-                   "give the effective porosity of your unit)", err=True)
+        warnings.append(f"--porosity not given; using n_e = {DEFAULT_POROSITY} (travel times scale with n_e: "
+                        "give the effective porosity of your unit)")
+        click.echo(f"warning: {warnings[-1]}", err=True)
     with open_store(store) as s:
         seed_spacing = _in_crs_units(seed_spacing, s)
         capture_radius = _in_crs_units(capture_radius, s)
         max_years = _in_units(max_years, "time", "yr", default_unit="yr")
         result = workflows.trace_paths(s, unit, porosity=porosity, out=out, surfaces=surfaces, backward=backward,
                                        k_source=k_source, seed_spacing=seed_spacing, capture_radius=capture_radius,
-                                       max_years=max_years, scenario=scenario,
+                                       max_years=max_years, scenario=scenario, surface=surface or None,
+                                       allow_stale=allow_stale,
                                        policy=_policy(include_poor, include_pumping_wells, exclude_wells))
+    warnings += _say_stale(result.get("stale_inputs_used"))
     for line in result.get("warnings", []):
         click.echo(f"warning: {line}", err=True)
-    _say_selection(result.get("selection"))
+    warnings += list(result.get("warnings", [])) + _say_selection(result.get("selection"))
+    if fmt != "table":
+        _report(fmt, {"unit": unit, "direction": result["direction"], "n_particles": result["n_particles"],
+                      "porosity": porosity, "pathways": result["table"], "files": result["files"],
+                      "product": result["product"], "input_products": result["input_products"],
+                      "selection": result.get("selection"), "warnings": warnings,
+                      "caution": result.get("caution"), "karst_warning": workflows.KARST_WARNING},
+                rows=result["table"])
+        return
     click.echo(f"{result['n_particles']} particles tracked {result['direction']} on the {unit} head surface")
     click.echo(result["table"].to_string(index=False, float_format=lambda v: f"{v:.4g}"))
     click.echo(f"Caution: {workflows.KARST_WARNING}")
     for kind, path in result["files"].items():
         click.echo(f"  {kind}: {path}")
+    click.echo(f"  product: {result['product']} (recorded in the store, from {', '.join(result['input_products'])})")
 
 
 RATE = Quantity("rate", FINITE, metavar="Q[UNIT]")
@@ -159,7 +176,7 @@ def _parse_new_wells(values, rate_unit: str = "m3/d"):
 
 @main.command()
 @click.argument("store")
-@click.option("--unit", required=True, help="Unit code (its head surface must exist).")
+@click.option("--unit", required=True, help="Unit code (a head surface of it must be recorded in the store).")
 @click.option("--days", type=Quantity("time", POSITIVE), required=True,
               help="Pumping duration: days, or a number with a time unit (s, min, h, d, yr; e.g. 1yr).")
 @click.option("--storativity", "-S", type=OPEN_FRACTION, default=None,
@@ -181,16 +198,22 @@ def _parse_new_wells(values, rate_unit: str = "m3/d"):
                    "in the store's length unit).")
 @click.option("--name", default=None,
               help="Scenario name: outputs OUT/<unit>_drawdown_<name>.tif, OUT/<unit>_head_<name>.tif, "
-                   "OUT/<unit>_drawdown_<name>_impacts.csv and .json, which 'paths --scenario NAME' traces on.")
+                   "OUT/<unit>_drawdown_<name>_impacts.csv and .json, recorded in the store as product "
+                   "<unit>_drawdown_<name>; 'paths --scenario NAME' and 'map --scenario NAME' use it.")
 @click.option("--from-unpumped", is_flag=True,
               help="Total drawdown of all pumping (baseline wells at their rates plus the scenario) on the head "
                    "surface adjusted to unpumped conditions by adding back the baseline wells' Theis drawdown at "
                    "the end of the head window.")
+@surface_option
+@allow_stale_option
 @surfaces_option
 @click.option("--out", default=".", show_default=True, type=click.Path(file_okay=False), help="Output folder.")
 @selection_options
-def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transmissivity, threshold, surfaces, out,
-             name, from_unpumped, include_poor, include_pumping_wells, exclude_wells):
+@format_option
+@with_caution("drawdown")
+def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transmissivity, threshold, surface,
+             allow_stale, surfaces, out, name, from_unpumped, include_poor, include_pumping_wells, exclude_wells,
+             fmt):
     """Theis drawdown of a pumping scenario, superposed on the unit's head surface.
 
     The baseline: measured heads already hold the cones of the wells that pumped
@@ -209,18 +232,14 @@ def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transm
     sidecar with the head window, the baseline wells and the changes; with
     --name NAME the files carry the name.
 
-    Caution: results are screening-level estimates for planning and model set-up,
-    not a substitute for site-specific investigation or for the judgement of a
-    licensed professional geoscientist or engineer; well construction, testing and
-    pumping are governed by local rules and permits. Theis assumes a uniform,
-    infinite aquifer: boundaries, leakage and karst conduits change real drawdown.
-
     Example: hydroatlas drawdown district.gpkg --unit ULS --days 365 -S 0.001 --rate ZP-031=2000
     """
+    warnings = []
     if storativity is None:
         storativity = DEFAULT_STORATIVITY
-        click.echo(f"warning: --storativity not given; using S = {DEFAULT_STORATIVITY} (typical of a confined "
-                   "aquifer; an unconfined one is nearer 0.01-0.3: give the value for your unit)", err=True)
+        warnings.append(f"--storativity not given; using S = {DEFAULT_STORATIVITY} (typical of a confined "
+                        "aquifer; an unconfined one is nearer 0.01-0.3: give the value for your unit)")
+        click.echo(f"warning: {warnings[-1]}", err=True)
     with open_store(store) as s:
         su = _store_units(s)  # a bare number is in the store's units; rates in --rate-unit when given
         days = _in_units(days, "time", "d", default_unit="d")
@@ -232,10 +251,25 @@ def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transm
                                           new_wells=_parse_new_wells(new_wells, q_unit), rate_unit="m3/d",
                                           transmissivity=transmissivity, surfaces=surfaces, out=out,
                                           threshold=threshold, name=name, from_unpumped=from_unpumped,
+                                          surface=surface, allow_stale=allow_stale,
                                           policy=_policy(include_poor, include_pumping_wells, exclude_wells))
-    _say_selection(res.get("selection"))
+    warnings += _say_stale(res.get("stale_inputs_used"))
+    warnings += _say_selection(res.get("selection"))
     for line in res.get("warnings", []):
         click.echo(f"warning: {line}", err=True)
+    warnings += list(res.get("warnings", []))
+    if fmt != "table":
+        _report(fmt, {"unit": unit, "mode": res["mode"], "days": days, "storativity": storativity,
+                      "transmissivity_m2_per_d": res["transmissivity_m2_per_d"],
+                      "transmissivity": {"value": convert(res["transmissivity_m2_per_d"], "m2/d", su.transmissivity,
+                                                          "transmissivity"), "unit": su.transmissivity},
+                      "length_unit": res["length_unit"], "max_drawdown": res["max_drawdown"],
+                      "min_drawdown": res["min_drawdown"], "threshold": threshold, "baseline": res["baseline"],
+                      "changes": res["changes"], "impacts": res["impacts"], "files": res["files"],
+                      "product": res["product"], "head_surface_product": base_product(res),
+                      "selection": res.get("selection"), "warnings": warnings, "caution": res.get("caution")},
+                rows=res["impacts"])
+        return
     base = res["baseline"]
     click.echo(f"{res['mode']}: {len(base['wells'])} baseline wells pumping in the head window "
                f"{base['head_window']['text']}, {len(res['changes'])} changes")
@@ -254,3 +288,9 @@ def drawdown(store, unit, days, storativity, rates, new_wells, rate_unit, transm
                                                                         float_format=lambda v: f"{v:.3g}"))
     for kind, path in res["files"].items():
         click.echo(f"  {kind}: {path}")
+    click.echo(f"  product: {res['product']} (recorded in the store, on head surface {base_product(res)})")
+
+
+def base_product(res: dict) -> str:
+    """The head surface product a drawdown scenario was computed on (from its sidecar)."""
+    return res["baseline"]["head_surface_product"]

@@ -256,9 +256,10 @@ def write_mf6(folder, layers, *, wells: pd.DataFrame | None = None, springs: pd.
     if springs_in:
         if spring_conductance is None:
             raise ParameterError(f"{len(springs_in)} spring(s) lie in the grid: give their drain conductance "
-                                 f"(--spring-conductance, {L}2/d)")
+                                 f"(spring_conductance=, {L}2/d)", param="spring_conductance")
         if not (np.isfinite(spring_conductance) and spring_conductance > 0):
-            raise ParameterError(f"--spring-conductance must be > 0 and finite; got {spring_conductance}")
+            raise ParameterError(f"spring_conductance= must be > 0 and finite; got {spring_conductance}",
+                                 param="spring_conductance")
     a = _filled(arrays)
     folder = Path(folder)
     ensure_folder(folder.parent)

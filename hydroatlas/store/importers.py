@@ -25,43 +25,18 @@ from ..errors import ImportDataError, ParameterError, UnitError
 from ..quantities import K_UNITS, RATE_UNITS, normalize_unit
 from . import schema
 from .base import Store
+from .columns import INPUTS
 from .tables import Cells, read_csv_table
 
-KINDS = ("units", "wells", "picks", "zones", "ktests", "heads", "pumping", "springs", "discharge", "areas",
-         "slugtests", "sluggeometry", "transducer")
+# The input columns of every kind are declared once (hydroatlas.store.columns, from the table declarations in
+# hydroatlas.store.schema); what follows is made from that declaration.
+KINDS = tuple(INPUTS)
 #: the store table of each kind (the same name unless listed)
-TABLE_OF = {"slugtests": "slug_records", "sluggeometry": "slug_geometry", "transducer": "slug_records"}
-
-REQUIRED = {
-    "units": ("code", "name", "rank", "role"),
-    "wells": ("well_id", "ground_elev"),  # and one pair of COORDINATE_COLUMNS
-    "picks": ("well_id", "unit", "top_depth", "bottom_depth"),
-    "zones": ("well_id", "zone_id", "top_depth", "bottom_depth"),
-    "ktests": ("well_id", "zone_id", "tested_on", "method", "k", "k_unit"),
-    "heads": ("well_id", "zone_id", "measured_at"),
-    "pumping": ("well_id", "rate", "rate_unit", "start"),
-    "springs": ("spring_id", "elev"),  # and one pair of COORDINATE_COLUMNS
-    "discharge": ("spring_id", "measured_at", "discharge", "rate_unit"),
-    "areas": ("area_id", "kind"),
-    "slugtests": ("well_id", "zone_id", "test_id", "t_s", "displacement"),
-    "sluggeometry": ("well_id", "zone_id", "test_id", "casing_radius", "well_radius", "screen_length"),
-    "transducer": ("well_id", "zone_id", "test_id", "timestamp", "value", "value_unit"),
-}
-OPTIONAL = {
-    "units": ("parent",),
-    "wells": ("x", "y", "lon", "lat", "longitude", "latitude", "total_depth", "kind", "name"),
-    "picks": (),
-    "zones": ("kind", "unit"),
-    "ktests": ("quality", "source", "test_id", "orientation"),
-    "heads": ("head", "depth_to_water", "ref_elev", "quality"),
-    "pumping": ("zone_id", "end"),
-    "springs": ("x", "y", "lon", "lat", "longitude", "latitude", "name", "unit"),
-    "discharge": (),
-    "areas": ("unit",),
-    "slugtests": (),
-    "sluggeometry": ("aquifer_thickness", "static_depth", "tested_on"),
-    "transducer": ("test_start",),
-}
+TABLE_OF = {k: spec.table for k, spec in INPUTS.items() if spec.table != k}
+#: the columns the header of each kind must have (wells and springs also need one pair of COORDINATE_COLUMNS)
+REQUIRED = {k: spec.required for k, spec in INPUTS.items()}
+#: the columns the header of each kind may have
+OPTIONAL = {k: spec.optional for k, spec in INPUTS.items()}
 # Head given together with ref_elev - depth_to_water must agree to this, in the store's length unit.
 HEAD_CONSISTENCY_TOL = 0.01
 #: optional input columns that are not kept-when-absent values (keys, or values always written together)
@@ -73,7 +48,7 @@ COORDINATE_COLUMNS = (("x", "y"), ("lon", "lat"), ("longitude", "latitude"))
 GEOGRAPHIC_INPUT = "EPSG:4326"
 #: a unit code: letters, digits, '-', '_' and '.', not starting with '.' (codes name output files)
 UNIT_CODE = re.compile(r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$")
-MAX_RANK = 10_000
+MAX_RANK = int(INPUTS["units"].column("rank").maximum)
 
 
 @dataclass
@@ -120,7 +95,8 @@ def import_file(store: Store, kind: str, path: str | Path, *, input_crs=None,
     input_crs : CRS-like, optional
         CRS of the file's coordinates when it differs from the store CRS.
     progress : callable, optional
-        Called with the number of rows written after each chunk.
+        Called with the number of rows written after each chunk; if it has a ``total`` attribute, that is set
+        to the number of rows to write first.
     clear_empty : bool
         An empty cell of an optional column clears the stored value. By default it keeps it, and an optional
         column left out of the file keeps every stored value of that column; the values a re-import changes
@@ -151,6 +127,8 @@ def import_file(store: Store, kind: str, path: str | Path, *, input_crs=None,
     keep = () if clear_empty else tuple(c for c in optional if c in job.header)
     digest = hashlib.sha256(path.read_bytes()).hexdigest()
     frame["source_file"] = label
+    if progress is not None and hasattr(progress, "total"):  # a progress bar learns the whole job's size
+        progress.total = len(frame)
     with store.transaction():
         result = store.upsert(table, frame, geometry=geometry, progress=progress, keep_when_null=keep)
         store.log_import(kind, label, digest, result)
@@ -161,7 +139,8 @@ def _parse_crs(value, label) -> CRS:
     try:
         return CRS.from_user_input(value)
     except CRSError:
-        raise ImportDataError(f"--input-crs {value!r} is not a CRS pyproj knows (try EPSG:NNNN)", file=label) from None
+        raise ImportDataError(f"input_crs= {value!r} is not a CRS pyproj knows (try EPSG:NNNN)", file=label,
+                              param="input_crs") from None
 
 
 def _read(path, label, kind) -> Cells:
@@ -176,6 +155,52 @@ def _attrs(cells: Cells, kind: str) -> pd.Series:
 
 def _known(kind) -> set[str]:
     return set(REQUIRED[kind]) | set(OPTIONAL[kind])
+
+
+def _value(cells: Cells, kind: str, name: str):
+    """One input column read and checked as declared (:data:`hydroatlas.store.columns.INPUTS`).
+
+    A required column (or a ``filled`` optional one that the header has) needs a value in every row; the
+    cell is read by the column's form (text, number, whole number, date, date-time, instant, choice of the
+    allowed values and their aliases, K or rate unit) and its range checked. An empty optional cell gives
+    the column's default (None, or NaN for numbers). Raises ImportDataError naming file, row and column.
+    """
+    col = INPUTS[kind].column(name)
+    need = col.input == schema.REQUIRED or col.filled
+    form = col.value_form
+    if form == "text":
+        return cells.text(name, required=need, default=col.input_default)
+    if form == "choice":
+        return cells.choice(name, col.allowed, required=need, default=col.input_default,
+                            aliases=dict(col.aliases) or None)
+    if form in ("date", "date-time"):
+        return cells.timestamp(name, required=need, date_only=form == "date")
+    if form == "instant":
+        return _instants(cells, name, required=need)
+    if form == "K unit":
+        return _unit_labels(cells, name, K_UNITS, "hydraulic conductivity")
+    if form == "rate unit":
+        return _unit_labels(cells, name, RATE_UNITS, "rate")
+    general = col.minimum == 0 and not col.message  # Cells.number says it: 'must be greater than zero' etc.
+    values = cells.number(name, required=need, positive=general and col.above,
+                          nonnegative=general and not col.above)
+    finite = np.isfinite(values)
+    if form == "whole number":
+        hint = f" ({col.hint})" if col.hint else ""
+        cells.fail(finite & (values != np.round(values)), name, f"{name} must be a whole number{hint}")
+        if col.minimum is not None:
+            low = values <= col.minimum if col.above else values < col.minimum
+            bound = f"more than {col.minimum:g}" if col.above else f"{col.minimum:g} or more"
+            cells.fail(finite & low, name, f"{name} must be {bound}{hint}")
+        if col.maximum is not None:
+            cells.fail(finite & (values > col.maximum), name, f"{name} must be at most {col.maximum:g}{hint}")
+        return values
+    if col.minimum is not None and not general:
+        low = values <= col.minimum if col.above else values < col.minimum
+        cells.fail(finite & low, name, col.message or f"the value must be {col.range_text}")
+    if col.maximum is not None:
+        cells.fail(finite & (values > col.maximum), name, col.message or f"the value must be {col.range_text}")
+    return values
 
 
 def _unique(cells: Cells, keys: list[pd.Series], names: tuple[str, ...], hint: str = ""):
@@ -207,9 +232,9 @@ def _coordinate_columns(cells: Cells) -> tuple[str, str]:
     """The one pair of :data:`COORDINATE_COLUMNS` the file has; ImportDataError for none, both or half a pair."""
     found = [pair for pair in COORDINATE_COLUMNS if cells.has(pair[0]) or cells.has(pair[1])]
     if not found:
-        raise ImportDataError("missing coordinate columns: give x and y (store CRS, or --input-crs), or lon and "
+        raise ImportDataError("missing coordinate columns: give x and y (store CRS, or input_crs=), or lon and "
                               "lat (or longitude and latitude, in degrees, WGS 84)", file=cells.file, row=0,
-                              column="x")
+                              column="x", param="input_crs")
     if len(found) > 1:
         names = " and ".join("/".join(p) for p in found)
         raise ImportDataError(f"the header has two sets of coordinates ({names}); keep one pair of columns",
@@ -260,8 +285,8 @@ def _check_not_degrees(cells: Cells, x, y, crs: CRS, *, column: str = "x"):
     if np.all(np.abs(x) <= 180) and np.all(np.abs(y) <= 90):
         cells.fail(np.ones(len(x), bool), column,
                    f"x and y look like longitude/latitude in degrees, but {crs.name} is in "
-                   f"{crs.axis_info[0].unit_name}s; give --input-crs EPSG:4326 (x = longitude, y = latitude), "
-                   "or name the columns lon and lat")
+                   f"{crs.axis_info[0].unit_name}s; give input_crs=EPSG:4326 (x = longitude, y = latitude), "
+                   "or name the columns lon and lat", param="input_crs")
 
 
 def _check_in_crs(cells: Cells, x, y, crs: CRS, *, after: CRS | None = None, column: str = "x"):
@@ -291,28 +316,25 @@ def _check_in_crs(cells: Cells, x, y, crs: CRS, *, after: CRS | None = None, col
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
         where = (f"after transforming from {after.name}, the point ({x[i]:.6g}, {y[i]:.6g}) falls outside the store "
-                 f"CRS {crs.name}{area}; check x and y (swapped? wrong --input-crs?)" if after is not None else
+                 f"CRS {crs.name}{area}; check x and y (swapped? wrong input_crs=?)" if after is not None else
                  f"coordinates ({x[i]:.6g}, {y[i]:.6g}) are not valid in {crs.name}{area}; "
-                 "check x and y (swapped?) or give --input-crs")
-        cells.fail(bad, column, where)
+                 "check x and y (swapped?) or give input_crs=")
+        cells.fail(bad, column, where, param="input_crs")
 
 
 # -- kinds ---------------------------------------------------------------------
 def _prepare_units(store, path, label, crs_in):
     cells = _read(path, label, "units")
-    code = cells.text("code")
+    code = _value(cells, "units", "code")
     bad_code = ~code.astype(str).str.match(UNIT_CODE).to_numpy()
     if bad_code.any():
         first = code.iloc[int(np.flatnonzero(bad_code)[0])]
         cells.fail(bad_code, "code", f"unit code {first!r} is not allowed: use 1 to 64 letters, digits, '-', '_' "
                    "or '.', not starting with '.' (codes name output files)")
-    name = cells.text("name")
-    rank_f = cells.number("rank")
-    cells.fail(rank_f != np.round(rank_f), "rank", "rank must be a whole number (1 = top unit)")
-    cells.fail(rank_f < 1, "rank", "rank must be 1 or more (1 = top unit)")
-    cells.fail(rank_f > MAX_RANK, "rank", f"rank must be at most {MAX_RANK} (1 = top unit)")
-    role = cells.choice("role", schema.UNIT_ROLES)
-    parent = cells.text("parent", required=False)
+    name = _value(cells, "units", "name")
+    rank_f = _value(cells, "units", "rank")  # a whole number from 1 to MAX_RANK
+    role = _value(cells, "units", "role")
+    parent = _value(cells, "units", "parent")
     _unique(cells, [code], ("code",))
     existing = store.read("units", ["code", "rank", "parent"])
     known = set(existing["code"]) | set(code)
@@ -341,11 +363,11 @@ def _prepare_units(store, path, label, crs_in):
 
 def _prepare_wells(store, path, label, crs_in):
     cells = _read(path, label, "wells")
-    well_id = cells.text("well_id")
-    ground = cells.number("ground_elev")
-    total = cells.number("total_depth", required=False, positive=True)
-    kind = cells.choice("kind", schema.WELL_KINDS, required=False)
-    name = cells.text("name", required=False)
+    well_id = _value(cells, "wells", "well_id")
+    ground = _value(cells, "wells", "ground_elev")
+    total = _value(cells, "wells", "total_depth")
+    kind = _value(cells, "wells", "kind")
+    name = _value(cells, "wells", "name")
     _unique(cells, [well_id], ("well_id",))
     x, y, original = _coordinates(cells, store, crs_in)
     zones = store.read("zones", ["well_id", "zone_id", "bottom_depth"])
@@ -364,18 +386,18 @@ def _prepare_wells(store, path, label, crs_in):
     return frame, shapely.points(x, y)
 
 
-def _depth_pair(cells: Cells):
-    top = cells.number("top_depth", nonnegative=True)
-    bottom = cells.number("bottom_depth")
+def _depth_pair(cells: Cells, kind: str):
+    top = _value(cells, kind, "top_depth")
+    bottom = _value(cells, kind, "bottom_depth")
     cells.fail(bottom <= top, "bottom_depth", "bottom_depth must be greater than top_depth (depths grow downward)")
     return top, bottom
 
 
 def _prepare_picks(store, path, label, crs_in):
     cells = _read(path, label, "picks")
-    well_id = cells.text("well_id")
-    unit = cells.text("unit")
-    top, bottom = _depth_pair(cells)
+    well_id = _value(cells, "picks", "well_id")
+    unit = _value(cells, "picks", "unit")
+    top, bottom = _depth_pair(cells, "picks")
     _unique(cells, [well_id, unit], ("well_id", "unit"))
     _exists(cells, pd.DataFrame({"well_id": well_id}), store.read("wells", ["well_id"]), "well_id",
             "well", "import it in a wells file first")
@@ -388,11 +410,11 @@ def _prepare_picks(store, path, label, crs_in):
 
 def _prepare_zones(store, path, label, crs_in):
     cells = _read(path, label, "zones")
-    well_id = cells.text("well_id")
-    zone_id = cells.text("zone_id")
-    top, bottom = _depth_pair(cells)
-    kind = cells.choice("kind", schema.ZONE_KINDS, required=False, aliases={"open hole": "open_hole"})
-    unit = cells.text("unit", required=False)
+    well_id = _value(cells, "zones", "well_id")
+    zone_id = _value(cells, "zones", "zone_id")
+    top, bottom = _depth_pair(cells, "zones")
+    kind = _value(cells, "zones", "kind")
+    unit = _value(cells, "zones", "unit")
     _unique(cells, [well_id, zone_id], ("well_id", "zone_id"))
     wells = store.read("wells", ["well_id", "total_depth"])
     _exists(cells, pd.DataFrame({"well_id": well_id}), wells[["well_id"]], "well_id", "well",
@@ -431,19 +453,18 @@ def _unit_labels(cells: Cells, column: str, table: dict, quantity: str) -> pd.Se
 
 def _prepare_ktests(store, path, label, crs_in):
     cells = _read(path, label, "ktests")
-    well_id = cells.text("well_id")
-    zone_id = cells.text("zone_id")
-    tested_on = cells.timestamp("tested_on", date_only=True)
-    method = cells.choice("method", schema.KTEST_METHODS, aliases={"specific capacity": "specific_capacity"})
-    k = cells.number("k")
-    cells.fail(k <= 0, "k", "hydraulic conductivity must be greater than zero")
-    k_unit = _unit_labels(cells, "k_unit", K_UNITS, "hydraulic conductivity")
-    quality = cells.choice("quality", schema.QUALITIES, required=False)
-    source = cells.text("source", required=False)
+    well_id = _value(cells, "ktests", "well_id")
+    zone_id = _value(cells, "ktests", "zone_id")
+    tested_on = _value(cells, "ktests", "tested_on")
+    method = _value(cells, "ktests", "method")
+    k = _value(cells, "ktests", "k")
+    k_unit = _value(cells, "ktests", "k_unit")
+    quality = _value(cells, "ktests", "quality")
+    source = _value(cells, "ktests", "source")
     # K along the layers (default, also for an empty cell) or across them (a test of vertical K)
-    orientation = cells.choice("orientation", schema.KTEST_ORIENTATIONS, required=False, default="horizontal")
+    orientation = _value(cells, "ktests", "orientation")
     if cells.has("test_id"):
-        test_id = cells.text("test_id")
+        test_id = _value(cells, "ktests", "test_id")
     else:
         # No test_id: a test is known by (well, zone, date, method), whatever the way its value is written,
         # so a re-import with a corrected k updates the test (keeping the old value in the history).
@@ -466,12 +487,12 @@ def _prepare_heads(store, path, label, crs_in):
     if not cells.has("head") and not (cells.has("depth_to_water") and cells.has("ref_elev")):
         raise ImportDataError("missing column head (or both depth_to_water and ref_elev)",
                               file=label, row=0, column="head")
-    well_id = cells.text("well_id")
-    zone_id = cells.text("zone_id")
-    measured_at = cells.timestamp("measured_at")
-    head = cells.number("head", required=False)
-    dtw = cells.number("depth_to_water", required=False)
-    ref = cells.number("ref_elev", required=False)
+    well_id = _value(cells, "heads", "well_id")
+    zone_id = _value(cells, "heads", "zone_id")
+    measured_at = _value(cells, "heads", "measured_at")
+    head = _value(cells, "heads", "head")
+    dtw = _value(cells, "heads", "depth_to_water")
+    ref = _value(cells, "heads", "ref_elev")
     derived = ref - dtw
     no_head = np.isnan(head)
     cells.fail(no_head & np.isnan(dtw), "head" if cells.has("head") else "depth_to_water",
@@ -481,7 +502,7 @@ def _prepare_heads(store, path, label, crs_in):
     cells.fail(both & (np.abs(head - derived) > HEAD_CONSISTENCY_TOL), "head",
                "head disagrees with ref_elev - depth_to_water")
     head = np.where(no_head, derived, head)
-    quality = cells.choice("quality", schema.QUALITIES, required=False)
+    quality = _value(cells, "heads", "quality")
     _unique(cells, [well_id, zone_id, measured_at], ("well_id", "zone_id", "measured_at"))
     _zone_refs(cells, store, well_id, zone_id)
     frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "measured_at": measured_at, "head": head,
@@ -492,12 +513,12 @@ def _prepare_heads(store, path, label, crs_in):
 
 def _prepare_pumping(store, path, label, crs_in):
     cells = _read(path, label, "pumping")
-    well_id = cells.text("well_id")
-    zone_id = cells.text("zone_id", required=False, default="")
-    rate = cells.number("rate", nonnegative=True)
-    rate_unit = _unit_labels(cells, "rate_unit", RATE_UNITS, "rate")
-    start = cells.timestamp("start")
-    end = cells.timestamp("end", required=False)
+    well_id = _value(cells, "pumping", "well_id")
+    zone_id = _value(cells, "pumping", "zone_id")  # empty: the whole well
+    rate = _value(cells, "pumping", "rate")
+    rate_unit = _value(cells, "pumping", "rate_unit")
+    start = _value(cells, "pumping", "start")
+    end = _value(cells, "pumping", "end")
     later = end.notna().to_numpy()
     cells.fail(later & (end.astype(str) < start.astype(str)).to_numpy(), "end", "end is before start")
     _unique(cells, [well_id, zone_id, start], ("well_id", "zone_id", "start"))
@@ -517,10 +538,10 @@ def _prepare_pumping(store, path, label, crs_in):
 
 def _prepare_springs(store, path, label, crs_in):
     cells = _read(path, label, "springs")
-    spring_id = cells.text("spring_id")
-    elev = cells.number("elev")
-    name = cells.text("name", required=False)
-    unit = cells.text("unit", required=False)
+    spring_id = _value(cells, "springs", "spring_id")
+    elev = _value(cells, "springs", "elev")
+    name = _value(cells, "springs", "name")
+    unit = _value(cells, "springs", "unit")
     _unique(cells, [spring_id], ("spring_id",))
     units = set(store.read("units", ["code"])["code"])
     cells.fail(unit.notna().to_numpy() & ~unit.isin(units).to_numpy(), "unit",
@@ -537,10 +558,10 @@ def _prepare_springs(store, path, label, crs_in):
 
 def _prepare_discharge(store, path, label, crs_in):
     cells = _read(path, label, "discharge")
-    spring_id = cells.text("spring_id")
-    measured_at = cells.timestamp("measured_at")
-    q = cells.number("discharge", nonnegative=True)
-    unit = _unit_labels(cells, "rate_unit", RATE_UNITS, "rate")
+    spring_id = _value(cells, "discharge", "spring_id")
+    measured_at = _value(cells, "discharge", "measured_at")
+    q = _value(cells, "discharge", "discharge")
+    unit = _value(cells, "discharge", "rate_unit")
     _unique(cells, [spring_id, measured_at], ("spring_id", "measured_at"))
     _exists(cells, pd.DataFrame({"spring_id": spring_id}), store.read("springs", ["spring_id"]), "spring_id",
             "spring", "import it in a springs file first")
@@ -576,9 +597,9 @@ def _prepare_areas(store, path, label, crs_in):
                          for c in gdf.columns if c != "geometry"})
     text["source_row"] = np.arange(1, len(gdf) + 1)
     cells = Cells(text, label)
-    area_id = cells.text("area_id")
-    kind = cells.choice("kind", schema.AREA_KINDS)
-    unit = cells.text("unit", required=False)
+    area_id = _value(cells, "areas", "area_id")
+    kind = _value(cells, "areas", "kind")
+    unit = _value(cells, "areas", "unit")
     _unique(cells, [area_id], ("area_id",))
     units = set(store.read("units", ["code"])["code"])
     cells.fail(unit.notna().to_numpy() & ~unit.isin(units).to_numpy(), "unit",
@@ -594,7 +615,7 @@ def _prepare_areas(store, path, label, crs_in):
     file_crs = gdf.crs
     source = crs_in or (CRS.from_user_input(file_crs) if file_crs is not None else None)
     if source is None:
-        raise ImportDataError("the file has no CRS; give --input-crs", file=label)
+        raise ImportDataError("the file has no CRS; give input_crs=", file=label, param="input_crs")
     coords = shapely.get_coordinates(geoms)
     owner = np.repeat(np.arange(len(geoms)), shapely.get_num_coordinates(geoms))
     probe = Cells(pd.DataFrame({"source_row": cells.rows[owner]}), label)
@@ -638,9 +659,9 @@ def _note_domain_changes(store, area_id: pd.Series, kind: pd.Series) -> None:
 
 def _prepare_slugtests(store, path, label, crs_in):
     cells = _read(path, label, "slugtests")
-    well_id, zone_id, test_id = cells.text("well_id"), cells.text("zone_id"), cells.text("test_id")
-    t_s = cells.number("t_s", nonnegative=True)
-    disp = cells.number("displacement")
+    well_id, zone_id, test_id = (_value(cells, "slugtests", c) for c in ("well_id", "zone_id", "test_id"))
+    t_s = _value(cells, "slugtests", "t_s")
+    disp = _value(cells, "slugtests", "displacement")
     t_text = pd.Series(t_s).map(repr)
     _unique(cells, [well_id, zone_id, test_id, t_text], ("well_id", "zone_id", "test_id", "t_s"))
     _zone_refs(cells, store, well_id, zone_id)
@@ -652,7 +673,7 @@ def _prepare_slugtests(store, path, label, crs_in):
 #: optional sluggeometry columns kept (checked and typed) in the row's attrs: the slug_geometry table has no
 #: column for them
 SLUG_GEOMETRY_EXTRA = ("screen_top_depth", "confined", "geometry_kind")
-SLUG_GEOMETRY_KINDS = ("screen", "packer", "open_hole")
+SLUG_GEOMETRY_KINDS = INPUTS["sluggeometry"].column("geometry_kind").allowed
 #: tolerance (store length unit) when checking that a screen lies inside its zone
 SCREEN_IN_ZONE_TOL = 0.01
 
@@ -674,19 +695,17 @@ def _merge_attrs(base: pd.Series, typed: dict[str, list]) -> pd.Series:
 
 def _prepare_sluggeometry(store, path, label, crs_in):
     cells = _read(path, label, "sluggeometry")
-    well_id, zone_id, test_id = cells.text("well_id"), cells.text("zone_id"), cells.text("test_id")
-    rc = cells.number("casing_radius", positive=True)
-    rw = cells.number("well_radius", positive=True)
-    le = cells.number("screen_length", positive=True)
-    b = cells.number("aquifer_thickness", required=False, positive=True)
-    sd = cells.number("static_depth", required=False, nonnegative=True)
-    tested_on = cells.timestamp("tested_on", required=False, date_only=True)
+    well_id, zone_id, test_id = (_value(cells, "sluggeometry", c) for c in ("well_id", "zone_id", "test_id"))
+    rc = _value(cells, "sluggeometry", "casing_radius")
+    rw = _value(cells, "sluggeometry", "well_radius")
+    le = _value(cells, "sluggeometry", "screen_length")
+    b = _value(cells, "sluggeometry", "aquifer_thickness")
+    sd = _value(cells, "sluggeometry", "static_depth")
+    tested_on = _value(cells, "sluggeometry", "tested_on")
     # optional: where the screen starts, whether the interval is confined, and the kind of open interval
-    top = cells.number("screen_top_depth", required=False, nonnegative=True)
-    confined = cells.choice("confined", ("true", "false"), required=False,
-                            aliases={"yes": "true", "no": "false", "1": "true", "0": "false"})
-    gkind = cells.choice("geometry_kind", SLUG_GEOMETRY_KINDS, required=False,
-                         aliases={"open hole": "open_hole", "open-hole": "open_hole"})
+    top = _value(cells, "sluggeometry", "screen_top_depth")
+    confined = _value(cells, "sluggeometry", "confined")
+    gkind = _value(cells, "sluggeometry", "geometry_kind")
     _unique(cells, [well_id, zone_id, test_id], ("well_id", "zone_id", "test_id"))
     _zone_refs(cells, store, well_id, zone_id)
     if np.isfinite(top).any():
@@ -719,8 +738,6 @@ PSI_PA = 6894.757
 TRANSDUCER_UNITS = {"psi": PSI_PA / (WATER_DENSITY * STANDARD_GRAVITY),
                     "kpa": 1000.0 / (WATER_DENSITY * STANDARD_GRAVITY),
                     "m": 1.0, "ft": 0.3048}
-_TRANSDUCER_ALIASES = {"m_water": "m", "ft_water": "ft", "mh2o": "m", "fth2o": "ft", "m of water": "m",
-                       "ft of water": "ft"}
 
 
 def _instants(cells: Cells, column: str, *, required: bool = True) -> pd.Series:
@@ -755,11 +772,11 @@ def _prepare_transducer(store, path, label, crs_in):
     from ..quantities import LENGTH_UNITS
 
     cells = _read(path, label, "transducer")
-    well_id, zone_id, test_id = cells.text("well_id"), cells.text("zone_id"), cells.text("test_id")
-    stamp = _instants(cells, "timestamp")
-    value = cells.number("value")
-    unit = cells.choice("value_unit", tuple(TRANSDUCER_UNITS), aliases=_TRANSDUCER_ALIASES)
-    start_given = _instants(cells, "test_start", required=False)
+    well_id, zone_id, test_id = (_value(cells, "transducer", c) for c in ("well_id", "zone_id", "test_id"))
+    stamp = _value(cells, "transducer", "timestamp")
+    value = _value(cells, "transducer", "value")
+    unit = _value(cells, "transducer", "value_unit")  # one of TRANSDUCER_UNITS
+    start_given = _value(cells, "transducer", "test_start")
     stamp_text = pd.Series(stamp.dt.strftime("%Y-%m-%dT%H:%M:%S.%f").to_numpy(), index=stamp.index)
     _unique(cells, [well_id, zone_id, test_id, stamp_text], ("well_id", "zone_id", "test_id", "timestamp"))
     _zone_refs(cells, store, well_id, zone_id)

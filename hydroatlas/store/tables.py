@@ -160,14 +160,16 @@ class Cells:
         self.file = file
         self.rows = frame["source_row"].to_numpy()
 
-    def fail(self, mask, column: str | None, message: str):
-        """Raise ImportDataError at the first row where ``mask`` is true (if any)."""
+    def fail(self, mask, column: str | None, message: str, *, param: str | tuple[str, ...] | None = None):
+        """Raise ImportDataError at the first row where ``mask`` is true (if any); ``param``: the parameter(s)
+        the message names (``input_crs=``)."""
         mask = np.asarray(mask, dtype=bool)
         if mask.any():
             first = int(np.flatnonzero(mask)[0])
             more = int(mask.sum()) - 1
             extra = f" ({more} more row{'s' if more != 1 else ''} like this)" if more else ""
-            raise ImportDataError(message + extra, file=self.file, row=int(self.rows[first]), column=column)
+            raise ImportDataError(message + extra, file=self.file, row=int(self.rows[first]), column=column,
+                                  param=param)
 
     def has(self, column: str) -> bool:
         return column in self.frame.columns

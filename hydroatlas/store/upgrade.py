@@ -5,10 +5,12 @@ Version 1: the first release. Version 2 adds retirement (``retired_at``,
 triggers, and K-test keys that do not depend on how the value was written
 (``method@date`` instead of ``date|method|k|unit`` when the file gave no test_id). Version 3 adds the
 ``orientation`` of K tests (``horizontal``, the default given to every existing test, or ``vertical``).
+Version 4 adds the ``products`` table, the registry of derived products (:mod:`hydroatlas.products`); it
+starts empty: files made by an older release are not known to the store, so make them again.
 
 An upgrade adds every column the current schema has and the store lacks (with its default and its CHECK
-constraint), creates the history table when missing, and drops and recreates the history triggers of every
-table, since they list every column.
+constraint), creates the tables without provenance columns when missing (the history table, the product
+registry), and drops and recreates the history triggers of every table, since they list every column.
 """
 
 from __future__ import annotations
@@ -21,6 +23,9 @@ from ..errors import StoreError
 from .schema import HISTORY_TABLE, SCHEMA_VERSION, TABLES, UPGRADABLE_VERSIONS
 
 SETTINGS_TABLE = "hydroatlas_settings"
+#: the index behind the product registry's table digests (the latest history entry of each table, without a scan);
+#: made by an upgrade and by the first product recorded in a store
+HISTORY_INDEX_SQL = (f"CREATE INDEX IF NOT EXISTS {HISTORY_TABLE}_by_table ON {HISTORY_TABLE} (table_name, fid)")
 
 
 def read_version(conn: sqlite3.Connection) -> str:
@@ -61,15 +66,13 @@ def upgrade_geopackage(path) -> tuple[str, str]:
         try:
             tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
             for spec in TABLES.values():
-                if spec.name == HISTORY_TABLE:
+                if not spec.provenance:  # the history table, the imports log, the product registry
                     if spec.name not in tables:
                         for stmt in table_ddl(spec):
                             conn.execute(stmt)
                         conn.execute("INSERT INTO gpkg_contents (table_name, data_type, identifier, description, "
                                      "last_change) VALUES (?, 'attributes', ?, ?, ?)",
                                      (spec.name, spec.name, spec.description, _now()))
-                    continue
-                if not spec.provenance:
                     continue
                 present = {r[1] for r in conn.execute(f"PRAGMA table_info({q(spec.name)})")}
                 for col in spec.columns:
@@ -81,6 +84,7 @@ def upgrade_geopackage(path) -> tuple[str, str]:
                 for col in spec.lifecycle:
                     if col not in present:
                         conn.execute(f"ALTER TABLE {q(spec.name)} ADD COLUMN {q(col)} TEXT")
+            conn.execute(HISTORY_INDEX_SQL)
             # the history triggers list every column: drop them and make them again for the new columns
             for spec in TABLES.values():
                 for suffix in ("_keep_history_update", "_keep_history_delete"):

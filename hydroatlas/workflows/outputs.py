@@ -8,18 +8,20 @@ import numpy as np
 import pandas as pd
 
 from .. import assign
-from ..errors import InsufficientDataError, ParameterError
-from ..export.names import ensure_folder, file_stem, output_path, unit_path
+from ..errors import ParameterError
+from ..modelbuild import CONTACT_METHOD, MODEL_MAX_CELLS  # noqa: F401 (MODEL_MAX_CELLS: re-exported)
+from ..export.names import ensure_folder, file_stem, output_path
 from ..store import Store
-from .store_jobs import (
-    CAUTION, _crs_to_m, _unit_members, tests_with_units, unit_stats, zone_assignment,
-)
+from ..cautions import caution_text, caution_texts
+from ..study import Study, metres_per_crs_unit
+from .store_jobs import tests_with_units, unit_stats, zone_assignment
 from .surfaces import (
-    _domain_polygons, make_interpolator, read_surface, surface_points, unit_intervals, unit_presence_of, verticals,
+    make_interpolator, read_grid, surface_points, unit_intervals, unit_presence_of,
+    verticals,
 )
-from .pathways import KARST_WARNING, active_pumping, drawdown_layers
+from .pathways import active_pumping, drawdown_layers
 from ..selection import (
-    DEFAULT_TOLERANCE_DAYS, SelectionPolicy, describe, select_ktests, select_readings, selection_record,
+    DEFAULT_TOLERANCE_DAYS, SelectionPolicy, describe, select_ktests, selection_record,
     sidecar_selection,
 )
 from .store_jobs import store_k_unit
@@ -79,13 +81,14 @@ def well_summaries(store: Store, *, k_unit: str | None = None,
     """
     from ..quantities import k_from_ms
 
-    k_unit = store_k_unit(store, k_unit)
-    asg = zone_assignment(store)
-    tests, tests_out = select_ktests(store, policy, asg)
+    study = Study.of(store, policy)
+    k_unit = store_k_unit(study, k_unit)
+    asg = study.assignment
+    tests, tests_out = study.select_ktests()
     lg = np.log10(tests["k_ms"].to_numpy(float))
     per_zone = pd.DataFrame({"well_id": tests["well_id"], "zone_id": tests["zone_id"], "lg": lg}) \
         .groupby(["well_id", "zone_id"]).agg(lg=("lg", "mean"), n_tests=("lg", "size")).reset_index()
-    heads, heads_out = select_readings(store, policy)
+    heads, heads_out = study.select_readings()
     latest = heads.sort_values("measured_at").groupby(["well_id", "zone_id"]).tail(1) \
         .rename(columns={"measured_at": "latest_head_at", "head": "latest_head"})
     zones = asg.merge(per_zone, on=["well_id", "zone_id"], how="left").merge(latest, on=["well_id", "zone_id"],
@@ -96,26 +99,35 @@ def well_summaries(store: Store, *, k_unit: str | None = None,
         lg=("lg", "mean"), n_tests=("n_tests", "sum")).reset_index()
     per_unit["k"] = k_from_ms(10 ** per_unit["lg"].to_numpy(float), k_unit)
     zones = zones.drop(columns=["lg"])
-    zones.attrs["selection"] = selection_record(policy, tests_out + heads_out)
+    zones.attrs["selection"] = study.selection_record(tests_out + heads_out)
     return per_unit, zones
 
 
 def export_layers(store: Store, *, out=".", surfaces=None, k_unit: str | None = None,
-                  policy: SelectionPolicy | None = None) -> dict:
+                  policy: SelectionPolicy | None = None, allow_stale: bool = False,
+                  warnings: list | None = None) -> dict:
     """Vector layers to OUT/layers.gpkg and OUT/geojson/<layer>.geojson (RFC 7946, WGS 84).
 
     wells (with per-unit geometric-mean K and test counts as columns), zones (points at
-    mid-depth), head contours of every head surface found, and the flow_arrows, pathlines and
-    contributing_areas layers already written by `surface` and `paths`. K and latest heads follow the
-    selection policy (None: the default).
+    mid-depth), head contours of the latest head surface of each unit recorded in the store, and the
+    flow_arrows, pathlines and contributing_areas of the latest gradient and pathway products of each unit
+    (and direction and scenario). ``surfaces`` (a folder) narrows the search to products whose files lie
+    there. Layers already in OUT/layers.gpkg because `surface` or `paths` wrote them there are left as they
+    are; the GeoJSON files hold the recorded products' rows. A product made from store rows that changed
+    since is refused unless ``allow_stale`` (then ``warnings``, when given, receives the texts). K and latest
+    heads follow the selection policy (None: the default). The export is recorded in the registry (kind
+    ``layers``).
     """
     import geopandas as gpd
-    import pyogrio
 
+    from .. import products
     from ..export.layers import write_geojson, write_layer
 
     out = Path(out)
-    folder = Path(surfaces) if surfaces is not None else out
+    # the registry: the store must take the record, and the digests come before any row is read
+    digests = products.input_digests(store, "layers")
+    products.ensure_writable(store)
+    store = Study.of(store, policy)  # the tables are read once for the whole export
     crs = store.settings.crs
     k_unit = store_k_unit(store, k_unit)  # default: the store's K unit
     per_unit, zones = well_summaries(store, k_unit=k_unit, policy=policy)
@@ -131,11 +143,11 @@ def export_layers(store: Store, *, out=".", surfaces=None, k_unit: str | None = 
                "bottom_elev", "mid_elev", "k", "k_unit", "n_tests", "latest_head", "latest_head_at", "x", "y"]].copy()
     z["straddles"] = z["straddles"].astype(bool)
     layers["zones"] = gpd.GeoDataFrame(z, geometry=gpd.points_from_xy(z["x"], z["y"]), crs=crs)
+    found = _layer_products(store, codes, folder=surfaces)
+    stale = products.check_fresh(store, found["used"], allow_stale=allow_stale)
     contours = []
-    for unit in codes:  # found under the names `surface` gives them, whatever the code holds
-        if not unit_path(folder, unit, "head.tif").is_file():
-            continue
-        grid, head = read_surface(folder, unit, "head", store.location)
+    for unit, prod in found["heads"].items():
+        grid, head = read_grid(prod.file("head.tif"))
         c = contour_lines(grid, head, _nice_levels(head), crs)
         c["unit"] = unit
         contours.append(c)
@@ -144,19 +156,78 @@ def export_layers(store: Store, *, out=".", surfaces=None, k_unit: str | None = 
     gpkg = out / "layers.gpkg"
     for name, gdf in layers.items():
         write_layer(gpkg, name, gdf)
-    src = folder / "layers.gpkg"
-    existing = {n for n, _ in pyogrio.list_layers(src)} if src.exists() else set()
-    for name in ("flow_arrows", "pathlines", "contributing_areas"):
-        if name in existing:
-            gdf = pyogrio.read_dataframe(src, layer=name)
-            if src.resolve() != gpkg.resolve():
-                write_layer(gpkg, name, gdf)
-            layers[name] = gdf
+    for name, (gdf, sources) in found["layers"].items():
+        if not any(Path(f).resolve() == gpkg.resolve() for f in sources):  # else `surface`/`paths` wrote it there
+            write_layer(gpkg, name, gdf)
+        layers[name] = gdf
     gj = ensure_folder(out / "geojson")
     files = {"gpkg": str(gpkg)}
     for name, gdf in layers.items():
         files[name] = str(write_geojson(output_path(gj, f"{name}.geojson"), gdf))
+    if warnings is not None:
+        warnings.extend(stale)
+    command = products.command_line("layers", store, ("--k-unit", k_unit), *products.policy_args(policy),
+                                    ("--out", str(out)))
+    products.record_product(store, kind="layers", name=products.product_name(store, "layers", gpkg),
+                            files=list(files.values()), parameters={"layers": sorted(layers), "k_unit": k_unit},
+                            selection=zones.attrs["selection"], inputs=[p.name for p in found["used"]],
+                            command=command, digests=digests)
     return files
+
+
+def _layer_products(store: Store, codes, *, folder=None) -> dict:
+    """The recorded products whose layers `layers` exports (their files checked): per unit the latest head
+    surface and its gradient (flow arrows), and the latest pathways and contributing areas of each unit,
+    direction and scenario. Returns ``heads`` {unit: product}, ``layers`` {layer: (rows, source files)} and
+    ``used`` (every product)."""
+    import geopandas as gpd
+
+    from .. import products
+
+    heads, used, parts = {}, [], {"flow_arrows": [], "pathlines": [], "contributing_areas": []}
+    for unit in codes:
+        head = products.find_product(store, kind="surface", unit=unit, quantity="head", folder=folder,
+                                     required=False)
+        if head is None:
+            continue
+        heads[unit] = head
+        used.append(head)
+        grad = products.find_product(store, kind="gradient", unit=unit, required=False,
+                                     match=lambda p, h=head.name: h in p.inputs)
+        if grad is not None:
+            used.append(grad)
+            parts["flow_arrows"].append((grad, {"unit": unit}))
+        for kind in ("pathways", "contributing_areas"):
+            latest = {}
+            for prod in products.list_products(store, kind=kind, unit=unit):
+                if folder is None or all(Path(f).resolve().is_relative_to(Path(folder).resolve())
+                                         for f in prod.files):
+                    latest[prod.parameters.get("scenario") or ""] = prod  # oldest first: the last one wins
+            for scenario, prod in latest.items():
+                used.append(prod)
+                direction = prod.parameters.get("direction", "forward")
+                parts["pathlines"].append((prod, {"unit": unit, "direction": direction, "scenario": scenario}))
+                if kind == "contributing_areas":
+                    parts["contributing_areas"].append((prod, {"unit": unit, "scenario": scenario}))
+    for prod in used:
+        products.check_files(prod)
+    layers = {}
+    for name, items in parts.items():
+        frames, sources = [], []
+        for prod, key in items:
+            gdf = _product_layer(prod, name)
+            if gdf is None:
+                continue
+            keep = np.ones(len(gdf), bool)
+            for col, value in key.items():
+                column = gdf[col].fillna("") if col in gdf.columns else pd.Series("", index=gdf.index)
+                keep &= (column == value).to_numpy()
+            frames.append(gdf[keep].to_crs(store.settings.crs))
+            sources += [f for f in prod.files if f.endswith(".gpkg")]
+        if frames:
+            layers[name] = (gpd.GeoDataFrame(pd.concat(frames, ignore_index=True), crs=store.settings.crs),
+                            sources)
+    return {"heads": heads, "layers": layers, "used": used}
 
 
 def unit_extent_outline(store: Store, unit: str, units: pd.DataFrame | None = None):
@@ -169,7 +240,7 @@ def unit_extent_outline(store: Store, unit: str, units: pd.DataFrame | None = No
     import shapely
 
     pres = unit_presence_of(store, unit, units)
-    domain = _domain_polygons(store, unit)
+    domain = Study.of(store).domain(unit)
     if domain is not None:
         clip = domain.union_all()
     elif len(pres):
@@ -199,13 +270,29 @@ def default_map_unit(store: Store, units: pd.DataFrame | None = None) -> str:
         return units["code"].iloc[0]
     with_heads = store.read("heads", ["well_id", "zone_id"]).drop_duplicates()
     zones = with_heads.merge(zone_assignment(store)[["well_id", "zone_id", "unit"]], on=["well_id", "zone_id"])
-    counts = {c: int(zones["unit"].isin(_unit_members(units, c)).sum()) for c in aquifers}
+    counts = {c: int(zones["unit"].isin(assign.unit_members(units, c)).sum()) for c in aquifers}
     return max(aquifers, key=lambda c: (counts[c], -aquifers.index(c)))
 
 
 def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces=None, k_unit: str | None = None,
-              tiles: str | None = None, policy: SelectionPolicy | None = None) -> Path:
-    """One self-contained HTML map of the store and of the results found in ``surfaces``.
+              tiles: str | None = None, policy: SelectionPolicy | None = None, surface: str | None = None,
+              scenarios=None, allow_stale: bool = False, warnings: list | None = None, title: str | None = None,
+              spring_notes: dict | None = None) -> Path:
+    """One self-contained HTML map of the store and of the products recorded in it.
+
+    A map a board can read (:mod:`hydroatlas.export.webmap` lays it out): ``title`` (default: the district and
+    the unit), the head window and the newest scenario (wells, rates, days, S, T) in a panel, a legend entry per
+    layer, the view fitted to the district, labelled drawdown contours, the scenario's proposed wells, springs
+    with their discharge and, from ``spring_notes`` (spring id -> plain lines; default: what the springflow
+    sidecars say, where any), their trigger levels.
+
+    The products come from the store's registry (:mod:`hydroatlas.products`): the unit's head surface (the one
+    named ``surface``, else the latest) with its gradient's flow arrows, its latest pathways and contributing
+    areas, and its drawdown scenarios (those named in ``scenarios``, by scenario or product name; None: every
+    one recorded). ``surfaces`` (a folder) narrows the search to products whose files lie there. A product made
+    from store rows that changed since is refused (StaleProductError) unless ``allow_stale``: it is then
+    shown, and the map's notes and the list ``warnings`` (when given) say so. The map is recorded in the
+    registry (kind ``map``).
 
     Well K and latest heads follow the selection policy (None: the default); the map's notes say what it
     left out.
@@ -215,14 +302,15 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
     """
     import folium
     import geopandas as gpd
-    import pyogrio
     import rasterio
     from rasterio.warp import Resampling, calculate_default_transform, reproject
 
-    from ..export.webmap import (K_COLORMAP, TIME_COLORMAP, arrow_svg, attribute_pairs, feature_tooltip,
-                                geojson_text, hex_colors, label_icon, legend_html, table_popup, text_tooltip,
-                                write_webmap)
+    from ..export.webmap import (DRAWDOWN_COLOR, K_COLORMAP, NO_K_FILL, PROPOSED_SVG, RECOVERY_COLOR, TIME_COLORMAP,
+                                WELL_KIND_STYLE, MapLayer, arrow_svg, attribute_pairs, feature_tooltip, geojson_text,
+                                hex_colors, label_icon, latlon, legend_html, symbol_area, symbol_circle, symbol_line,
+                                symbol_ramp, table_popup, text_tooltip, write_webmap)
     from ..quantities import store_units
+    from . import board
 
     k_unit = store_k_unit(store, k_unit)  # default: the store's K unit
     rate_unit = store_units(store.settings.length_unit).rate
@@ -230,9 +318,16 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
     units = store.read("units").sort_values("rank")
     if unit is None:
         unit = default_map_unit(store, units)
-    _unit_members(units, unit)
+    assign.unit_members(units, unit)
     out = Path(out)
-    folder = Path(surfaces) if surfaces is not None else out.parent
+    from .. import products
+
+    # the registry: the store must take the record, and the digests come before any row is read
+    digests = products.input_digests(store, "map")
+    products.ensure_writable(store)
+    store = Study.of(store, policy)  # the tables are read once for the whole map
+    found = _map_products(store, unit, surface=surface, scenarios=scenarios, folder=surfaces)
+    stale = products.check_fresh(store, found["used"], allow_stale=allow_stale)
     L = store.settings.length_unit
     datum = store.settings.vertical_datum
     per_unit, zones = well_summaries(store, k_unit=k_unit, policy=policy)
@@ -257,25 +352,34 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
             popup = table_popup([f"{w['well_id']} {name}".strip(), w["kind"]], header, rows,
                                 attributes=attribute_pairs(w["attrs"]))
             has_k = np.isfinite(w["k"])
-            folium.CircleMarker([geom.y, geom.x], radius=7 if has_k else 4, color="#1d2b36", weight=1,
-                                fill=True, fill_color=color, fill_opacity=0.95,
+            stroke, weight, dash = WELL_KIND_STYLE.get(w["kind"], WELL_KIND_STYLE["other"])
+            folium.CircleMarker(latlon(geom), radius=7 if has_k else 4, color=stroke, weight=weight,
+                                dash_array=dash, fill=True, fill_color=color, fill_opacity=0.95,
                                 tooltip=text_tooltip(w["well_id"]), popup=popup).add_to(group)
-    layers.append((f"Wells: K of {unit}", add_wells))
-    if finite.size:
-        legends.append(legend_html(f"Geometric-mean K of {unit} per well ({k_unit}, log scale)", lo, hi, K_COLORMAP,
-                                   fmt=lambda v: f"{10 ** v:.3g}"))
-    head_tif = unit_path(folder, unit, "head.tif")
-    if head_tif.is_file():
-        grid, head = read_surface(folder, unit, "head", store.location)
+    kinds_here = {k if k in WELL_KIND_STYLE else "other" for k in wells["kind"]}
+    mid_k = hex_colors([0.5], 0, 1, K_COLORMAP)[0]
+    well_symbols = [(symbol_circle(mid_k, s_, weight=w_, dash=d_), f"{kind} well")
+                    for kind, (s_, w_, d_) in WELL_KIND_STYLE.items() if kind in kinds_here]
+    if (~np.isfinite(lgk)).any():
+        well_symbols.append((symbol_circle(NO_K_FILL, "#1d2b36", radius=4), f"no K test of {unit}"))
+    layers.append(MapLayer(f"Wells: K of {unit}", add_wells, symbols=well_symbols,
+                           ramp=legend_html(f"Geometric-mean K per well ({k_unit}, log scale)", lo, hi, K_COLORMAP,
+                                            fmt=lambda v: f"{10 ** v:.3g}") if finite.size else None))
+    head_tif = found["head"].file("head.tif") if found["head"] is not None else None
+    if head_tif is not None:
+        grid, head = read_grid(head_tif)
         cont = contour_lines(grid, head, _nice_levels(head), crs).to_crs(4326)
 
         def add_contours(group):
             for geom, level in zip(cont.geometry, cont["level"]):
-                coords = [(y, x) for x, y in geom.coords]
+                coords = latlon(geom)
                 folium.PolyLine(coords, color="#0b5563", weight=1.5, opacity=0.9,
                                 tooltip=text_tooltip(f"head {level:g} {L} above {datum}")).add_to(group)
-                folium.Marker(coords[len(coords) // 2], icon=label_icon(f"{level:g}")).add_to(group)
-        layers.append((f"Head contours of {unit} ({L})", add_contours))
+                text = f"{level:g} {L}"
+                folium.Marker(coords[len(coords) // 2], icon=label_icon(text, size=(8 + 7 * len(text), 14))
+                              ).add_to(group)
+        layers.append(MapLayer(f"Head contours of {unit} ({L})", add_contours, symbols=[
+            (symbol_line("#0b5563", weight=1.5), f"head, {L} above {datum} (labelled)")]))
         with rasterio.open(head_tif) as src:
             if src.count >= 2:
                 std = src.read(2, masked=True).filled(np.nan)
@@ -296,25 +400,46 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
                     rgba = colormaps["Greys"]((warped - s0) / ((s1 - s0) or 1.0))
                     rgba[..., 3] = np.where(np.isfinite(warped), 0.35, 0.0)
 
-                    def add_std(group, rgba=rgba, bounds=[[s_, w_], [n_, e_]]):
+                    def add_std(group, rgba=rgba, bounds=np.round([[s_, w_], [n_, e_]], 6).tolist()):
                         folium.raster_layers.ImageOverlay(image=rgba, bounds=bounds, mercator_project=True,
                                                           opacity=1.0).add_to(group)
-                    layers.append((f"Kriging standard deviation of {unit} head", add_std))
-                    legends.append(legend_html(f"Kriging standard deviation ({L})",
-                                               s0, s1, "Greys"))
-    gpkg = folder / "layers.gpkg"
-    have = {n for n, _ in pyogrio.list_layers(gpkg)} if gpkg.exists() else set()
-    if "flow_arrows" in have:
-        arrows = pyogrio.read_dataframe(gpkg, layer="flow_arrows")
+                    layers.append(MapLayer(f"Kriging standard deviation of {unit} head", add_std, show=False,
+                                           ramp=legend_html(f"Kriging standard deviation ({L})", s0, s1, "Greys")))
+    logk_prod = products.find_product(store, kind="surface", unit=unit, quantity="logk", folder=surfaces,
+                                      required=False)
+    if logk_prod is not None:  # the latest log-K surface of the unit, on the wells' colour ramp
+        from ..export.webmap import raster_overlay
+        from ..quantities import convert
+        from .surfaces import read_logk_m_per_d
+
+        products.check_files(logk_prod)
+        stale += products.check_fresh(store, logk_prod, allow_stale=allow_stale)
+        found["used"].append(logk_prod)
+        lgrid, k_md, _ = read_logk_m_per_d(logk_prod, unit, store)
+        lk_map = np.log10(convert(k_md, "m/d", k_unit, "hydraulic conductivity"))
+        fin_lk = lk_map[np.isfinite(lk_map)]
+        if fin_lk.size:
+            l0, l1 = float(fin_lk.min()), float(fin_lk.max())
+            logk_img, logk_bounds = raster_overlay(lk_map, lgrid, crs, l0, l1, K_COLORMAP, alpha=0.6)
+
+            def add_logk(group, image=logk_img, bounds=logk_bounds):
+                folium.raster_layers.ImageOverlay(image=image, bounds=bounds, mercator_project=True,
+                                                  opacity=1.0).add_to(group)
+            layers.append(MapLayer(f"Log-K surface of {unit}", add_logk, show=False, symbols=[
+                (symbol_ramp(K_COLORMAP), f"kriged log10 K ({logk_prod.name})")],
+                ramp=legend_html(f"K ({k_unit}, log scale)", l0, l1, K_COLORMAP, fmt=lambda v: f"{10 ** v:.3g}")))
+    arrows = _product_layer(found["gradient"], "flow_arrows")
+    if arrows is not None:
         arrows = arrows[arrows["unit"] == unit].to_crs(4326)
 
         def add_arrows(group):
             for geom, az, grad in zip(arrows.geometry, arrows["azimuth"], arrows["gradient"]):
-                folium.Marker([geom.y, geom.x], tooltip=text_tooltip(f"flow {az:.0f} deg, gradient {grad:.2g}"),
+                folium.Marker(latlon(geom), tooltip=text_tooltip(f"flow {az:.0f} deg, gradient {grad:.2g}"),
                               icon=folium.DivIcon(html=arrow_svg(az), icon_size=(18, 18),
                                                   icon_anchor=(9, 9))).add_to(group)
         if len(arrows):
-            layers.append(("Flow arrows", add_arrows))
+            layers.append(MapLayer("Flow arrows", add_arrows, show=False,
+                                   symbols=[(arrow_svg(90, size=14), "direction of flow (-grad h)")]))
     pump = active_pumping(store, unit).merge(store.read("wells", ["well_id", "x", "y"]), on="well_id")
     if not pump.empty:
         pg = gpd.GeoDataFrame(pump, geometry=gpd.points_from_xy(pump["x"], pump["y"]), crs=crs).to_crs(4326)
@@ -322,24 +447,36 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
 
         def add_pumping(group):
             for geom, wid, q in zip(pg.geometry, pg["well_id"], pg["rate_m3d"]):
-                folium.CircleMarker([geom.y, geom.x], radius=float(5 + 14 * np.sqrt(q / qmax)), color="#8c2d04",
+                folium.CircleMarker(latlon(geom), radius=float(5 + 14 * np.sqrt(q / qmax)), color="#8c2d04",
                                     weight=2, fill=True, fill_color="#fdae6b", fill_opacity=0.6,
                                     tooltip=text_tooltip(f"{wid}: {_rate_text(q, rate_unit)}")).add_to(group)
-        layers.append(("Pumping wells (size by rate)", add_pumping))
+        layers.append(MapLayer("Pumping wells (size by rate)", add_pumping, symbols=[
+            (symbol_circle("#fdae6b", "#8c2d04", radius=9, weight=2, fill_opacity=0.6),
+             f"largest {_rate_text(qmax, rate_unit)}"),
+            (symbol_circle("#fdae6b", "#8c2d04", radius=5, weight=2, fill_opacity=0.6), "smaller rates")]))
     springs = store.read("springs")
     if not springs.empty:
         sg = gpd.GeoDataFrame(springs, geometry=gpd.points_from_xy(springs["x"], springs["y"]), crs=crs).to_crs(4326)
+        flow_lines = board.spring_discharge_lines(store)
+        if spring_notes is None:  # the springflow sidecars beside the surfaces, the map or the head surface
+            spring_notes = board.springflow_lines(store, [surfaces, out.parent] + (
+                [Path(found["head"].file("head.tif")).parent] if found["head"] is not None else []))
 
         def add_springs(group):
             for geom, s in zip(sg.geometry, sg.itertuples(index=False)):
                 icon = folium.DivIcon(html=SPRING_SVG, icon_size=(18, 18), icon_anchor=(9, 9))
                 name = s.name if isinstance(s.name, str) else ""
                 popup = table_popup([f"{s.spring_id} {name}".strip(), f"spring at {s.elev:g} {L} above {datum}"]
-                                    + ([f"issues from unit {s.unit}"] if isinstance(s.unit, str) else []),
+                                    + ([f"issues from unit {s.unit}"] if isinstance(s.unit, str) else [])
+                                    + flow_lines.get(str(s.spring_id), ["no discharge readings"])
+                                    + [str(v) for v in (spring_notes or {}).get(str(s.spring_id), [])],
                                     attributes=attribute_pairs(s.attrs))
-                folium.Marker([geom.y, geom.x], icon=icon, popup=popup,
-                              tooltip=text_tooltip(f"{s.spring_id} {name} ({s.elev:g})")).add_to(group)
-        layers.append(("Springs", add_springs))
+                latest = flow_lines.get(str(s.spring_id), [""])[0].split(" on ")[0]
+                folium.Marker(latlon(geom), icon=icon, popup=popup,
+                              tooltip=text_tooltip(f"{s.spring_id} {name} ({s.elev:g} {L})"
+                                                   + (f"; {latest.lower()}" if latest else ""))).add_to(group)
+        layers.append(MapLayer("Springs", add_springs, symbols=[
+            (SPRING_SVG, "spring (click: discharge and trigger levels)")]))
     areas = store.read_geometries("areas")
     rech = areas[areas["kind"] == "recharge"] if not areas.empty else areas
     if not rech.empty:
@@ -350,7 +487,8 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
             folium.GeoJson(data, style_function=lambda f: {"color": "#238b45", "weight": 2, "fillOpacity": 0.15},
                            tooltip=feature_tooltip(["area_id", "details"], ["recharge area", "attributes"])
                            ).add_to(group)
-        layers.append(("Recharge areas", add_recharge))
+        layers.append(MapLayer("Recharge areas", add_recharge, symbols=[
+            (symbol_area("#238b45", "#238b45"), "recharge area")]))
     extent = unit_extent_outline(store, unit, units)
     if extent is not None:
         data = geojson_text(extent)
@@ -360,9 +498,10 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
                                                            "fill": False},
                            tooltip=feature_tooltip(["unit", "rule"], ["extent of unit", "from the picks"])
                            ).add_to(group)
-        layers.append((f"Extent of {unit} (from the picks)", add_extent))
-    if "pathlines" in have:
-        pl = pyogrio.read_dataframe(gpkg, layer="pathlines")
+        layers.append(MapLayer(f"Extent of {unit} (from the picks)", add_extent, symbols=[
+            (symbol_area("#7a4a12", weight=2.5, dash="8 4"), f"edge of {unit} (nearest well with picks has it)")]))
+    pl = _product_layer(found["pathways"], "pathlines")
+    if pl is not None:
         pl = pl[(pl["unit"] == unit) & (pl["direction"] == "forward")]
         if "scenario" in pl.columns:  # the baseline's pathlines; a scenario's are in its own table and layer rows
             pl = pl[pl["scenario"].fillna("") == ""]
@@ -374,13 +513,13 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
 
             def add_paths(group):
                 for geom, color, yrs, end in zip(pl.geometry, pcol, years, pl["end_kind"]):
-                    folium.PolyLine([(y, x) for x, y in geom.coords], color=color, weight=2, opacity=0.85,
+                    folium.PolyLine(latlon(geom), color=color, weight=2, opacity=0.85,
                                     tooltip=text_tooltip(f"{yrs:.1f} years, ends at {end}")).add_to(group)
-            layers.append(("Pathlines (colour by travel time)", add_paths))
-            legends.append(legend_html("Pathline travel time (years; Darcy, upper bound in karst)", t0, t1,
-                                       TIME_COLORMAP))
-    if "contributing_areas" in have:
-        ca = pyogrio.read_dataframe(gpkg, layer="contributing_areas")
+            layers.append(MapLayer("Pathlines (colour by travel time)", add_paths, symbols=[
+                (symbol_line(hex_colors([0.5], 0, 1, TIME_COLORMAP)[0], weight=2), "path from a recharge area")],
+                ramp=legend_html("Travel time (years; Darcy, upper bound in karst)", t0, t1, TIME_COLORMAP)))
+    ca = _product_layer(found["contributing_areas"], "contributing_areas")
+    if ca is not None:
         ca = ca[(ca["unit"] == unit) & ~ca.geometry.is_empty]
         if "scenario" in ca.columns:
             ca = ca[ca["scenario"].fillna("") == ""]
@@ -391,9 +530,20 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
                 folium.GeoJson(data, style_function=lambda f: {"color": "#54278f", "weight": 1.5, "dashArray": "4 3",
                                                                "fillOpacity": 0.08},
                                tooltip=feature_tooltip(["spring_id"], ["contributing area of"])).add_to(group)
-            layers.append(("Contributing areas", add_ca))
-    for label, tail in drawdown_layers(folder, unit):  # the unnamed scenario and each named one
-        dgrid, dd = read_surface(folder, unit, tail, store.location)
+            layers.append(MapLayer("Contributing areas", add_ca, symbols=[
+                (symbol_area("#54278f", "#54278f", fill_opacity=0.08, weight=1.5, dash="4 3"),
+                 "likely source area of a spring")]))
+    sections = [("Head surface", board.head_window_lines(store, unit, found["head"]))] \
+        if found["head"] is not None else []
+    proposed = []
+    for i_dd, (label, prod) in enumerate(found["drawdown"]):  # the scenarios recorded (or asked for), newest first
+        side = board.scenario_sidecar(prod)
+        if side is not None:
+            if i_dd == 0:  # the panel tells the scenario shown when the map opens
+                sections.append((board.scenario_heading(side), board.scenario_lines(side, length_unit=L)))
+            proposed += [(w.well_id, w.x, w.y, w.scenario_rate_m3d, side.get("scenario") or prod.name)
+                         for w in board.proposed_wells(side).itertuples(index=False)]
+        dgrid, dd = read_grid(prod.files[0])
         steps = (0.1, 0.25, 0.5, 1, 2, 5, 10, 20, 50)
         levels = [v for v in steps if np.nanmax(dd) > v] + [-v for v in steps if np.nanmin(dd) < -v]
         dcont = contour_lines(dgrid, dd, levels, crs).to_crs(4326)
@@ -401,25 +551,107 @@ def build_map(store: Store, *, unit: str | None = None, out="map.html", surfaces
         def add_dd(group, dcont=dcont):
             for geom, level in zip(dcont.geometry, dcont["level"]):
                 text = f"drawdown {level:g} {L}" if level > 0 else f"recovery {-level:g} {L}"
-                folium.PolyLine([(y, x) for x, y in geom.coords], color="#b30000" if level > 0 else "#2b8cbe",
-                                weight=1.5, dash_array="6 4", tooltip=text_tooltip(text)).add_to(group)
+                color = DRAWDOWN_COLOR if level > 0 else RECOVERY_COLOR
+                coords = latlon(geom)
+                folium.PolyLine(coords, color=color, weight=1.5, dash_array="6 4",
+                                tooltip=text_tooltip(text)).add_to(group)
+                if len(coords) >= 2:  # a permanent label on each line, in the store's unit
+                    short = f"{level:g} {L}" if level > 0 else f"rise {-level:g} {L}"
+                    folium.Marker(coords[len(coords) // 2], icon=label_icon(short, size=(8 + 7 * len(short), 14),
+                                                                            color=color)).add_to(group)
         if len(dcont):
-            layers.append((label, add_dd))
-    cautions = [CAUTION, KARST_WARNING]
-    unit_name = units.set_index("code").loc[unit, "name"]
-    title = f"hydroatlas: {unit}" + (f" ({unit_name})" if isinstance(unit_name, str) and unit_name != unit else "")
-    notes = [f"Elevations and heads in {L} above the vertical datum: {datum}"]
+            layers.append(MapLayer(label, add_dd, show=i_dd == 0, symbols=[
+                (symbol_line(DRAWDOWN_COLOR, weight=1.5, dash="6 4"), f"drawdown, {L} (labelled)"),
+                (symbol_line(RECOVERY_COLOR, weight=1.5, dash="6 4"), f"recovery (head rise), {L}")]))
+    if proposed:
+        def add_proposed(group, proposed=proposed):
+            pts = gpd.GeoDataFrame({"q": [q for *_, q, _ in proposed]},
+                                   geometry=gpd.points_from_xy([x for _, x, *_ in proposed],
+                                                               [y for _, _, y, *_ in proposed]), crs=crs).to_crs(4326)
+            for geom, (wid, _, _, q, scen) in zip(pts.geometry, proposed):
+                folium.Marker(latlon(geom), icon=folium.DivIcon(html=PROPOSED_SVG, icon_size=(18, 18),
+                                                                icon_anchor=(9, 9)),
+                              tooltip=text_tooltip(f"{wid}: proposed, {_rate_text(q, rate_unit)} (scenario {scen})"),
+                              popup=table_popup([f"{wid}", f"proposed well of scenario {scen}",
+                                                 f"rate {_rate_text(q, rate_unit)}"])).add_to(group)
+                folium.Marker(latlon(geom), icon=label_icon(str(wid), size=(12 + 7 * len(str(wid)), 14),
+                                                            beside=True)).add_to(group)
+        layers.append(MapLayer("Proposed wells (scenarios)", add_proposed,
+                               symbols=[(PROPOSED_SVG, "proposed well of a drawdown scenario")]))
+    cautions = caution_texts("map")
+    shown_title, subtitle = board.map_title(store, unit, units, title)
+    notes = []
     notes += [f"Well K and latest heads: {text}" for _, text in describe(zones.attrs["selection"]["left_out"])]
-    return write_webmap(out, title=title, center=center, layers=layers, legends=legends, cautions=cautions,
-                        notes=notes, tiles=tiles)
+    notes += [f"Stale input: {text}" for text in stale]
+    if warnings is not None:
+        warnings.extend(stale)
+    path = write_webmap(out, title=shown_title, center=center, layers=layers, legends=legends, cautions=cautions,
+                        notes=notes, tiles=tiles, subtitle=subtitle, sections=sections, length_unit=L,
+                        bounds=board.bounds_latlon(store, board.district_bounds(store)))
+    command = products.command_line(
+        "map", store, ("--unit", unit), ("--surface", surface),
+        *[("--scenario", n) for n in ([scenarios] if isinstance(scenarios, str) else (scenarios or ()))],
+        ("--k-unit", k_unit), ("--tiles", tiles), ("--title", title), *products.policy_args(policy),
+        ("--out", str(out)))
+    products.record_product(store, kind="map", name=products.product_name(store, f"map_{unit}", path), unit=unit,
+                            files=[path], parameters={"tiles": tiles, "k_unit": k_unit,
+                                                      "scenarios": [p.name for _, p in found["drawdown"]]},
+                            selection=zones.attrs["selection"], inputs=[p.name for p in found["used"]],
+                            command=command, digests=digests)
+    return path
+
+
+def _map_products(store: Store, unit: str, *, surface=None, scenarios=None, folder=None) -> dict:
+    """The recorded products a map of ``unit`` shows (their files checked): head surface, gradient, pathways,
+    contributing areas (the baseline's, not a scenario's) and drawdown scenarios; ``used`` lists them all."""
+    from .. import products
+
+    head = products.find_product(store, kind="surface", unit=unit, quantity="head", name=surface, folder=folder,
+                                 required=surface is not None)
+    gradient = None
+    if head is not None:  # the gradient made with this head surface, else none
+        gradient = products.find_product(store, kind="gradient", unit=unit, required=False,
+                                         match=lambda p: head.name in p.inputs)
+    baseline = (lambda p: not p.parameters.get("scenario"))
+    pathways = products.find_product(store, kind="pathways", unit=unit, folder=folder, required=False,
+                                     match=baseline)
+    areas = products.find_product(store, kind="contributing_areas", unit=unit, folder=folder, required=False,
+                                  match=baseline)
+    drawdown = drawdown_layers(store, unit, scenarios=scenarios, folder=folder)
+    used = [p for p in (head, gradient, pathways, areas) if p is not None] + [p for _, p in drawdown]
+    for prod in used:
+        products.check_files(prod)
+    return {"head": head, "gradient": gradient, "pathways": pathways, "contributing_areas": areas,
+            "drawdown": drawdown, "used": used}
+
+
+def _product_layer(prod, layer: str):
+    """The layer ``layer`` of the GeoPackage among a product's files (None when there is none)."""
+    import pyogrio
+
+    if prod is None:
+        return None
+    for f in prod.files:
+        if f.endswith(".gpkg") and layer in {n for n, _ in pyogrio.list_layers(f)}:
+            return pyogrio.read_dataframe(f, layer=layer)
+    return None
 
 
 def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str | None = None,
-                 policy: SelectionPolicy | None = None) -> list[Path]:
+                 policy: SelectionPolicy | None = None, allow_stale: bool = False,
+                 warnings: list | None = None, board_map: bool = False, unit: str | None = None,
+                 title: str | None = None) -> list[Path]:
     """PNG and SVG figures: head profiles of multi-zone wells, log K per unit, variogram fits, cross-validation.
+
+    With ``board_map``, also the static map of ``unit`` for reports (PNG, SVG and PDF; ``title`` as the web
+    map's): :func:`hydroatlas.workflows.board.board_map_figure`.
 
     Profiles and K distributions follow the selection policy (None: the default); the cross-validation of a
     surface uses the policy recorded in that surface's sidecar, so its points are those the surface used.
+    The surfaces are the latest of each unit and quantity recorded in the store's product registry
+    (``surfaces``, a folder, narrows the search to products whose files lie there); one made from store rows
+    that changed since is refused unless ``allow_stale`` (then ``warnings``, when given, receives the texts).
+    The figures are recorded in the registry (kind ``figures``).
     """
     import json
 
@@ -430,8 +662,23 @@ def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str | None = N
 
     k_unit = store_k_unit(store, k_unit)  # default: the store's K unit
     distance_unit = crs_unit_label(store.settings.crs.axis_info[0].unit_name)
+    from .. import products
+
+    if board_map and unit is not None:  # refused before any figure is drawn
+        assign.unit_members(store.read("units"), unit)
     out = ensure_folder(out)
-    folder = Path(surfaces) if surfaces is not None else out
+    # the registry: the store must take the record, and the digests come before any row is read
+    digests = products.input_digests(store, "figures")
+    products.ensure_writable(store)
+    store = Study.of(store, policy)  # the tables are read once for the whole figures
+    latest = {}
+    for prod in products.list_products(store, kind="surface"):  # oldest first: the latest of each one wins
+        if surfaces is None or all(Path(f).resolve().is_relative_to(Path(surfaces).resolve()) for f in prod.files):
+            latest[(prod.unit, prod.quantity)] = prod
+    used = sorted(latest.values(), key=lambda p: p.name)
+    for prod in used:
+        products.check_files(prod)
+    stale = products.check_fresh(store, used, allow_stale=allow_stale)
     written: list[Path] = []
     units = store.read("units")
     pairs, profiles = verticals(store, policy=policy)
@@ -457,9 +704,8 @@ def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str | None = N
         slugs = reduce_slug_tests(store, method=slug_method_asked(store), write=False,
                                   figures=output_path(out, "slugs"))
         written += [Path(p) for p in slugs.attrs["figures"]]
-    for side_path in sorted(folder.glob("*_*.json")):
-        if side_path.name.startswith("."):  # a temporary file of an interrupted writer
-            continue
+    for prod in used:
+        side_path = prod.file(f"{prod.quantity}.json")
         side = json.loads(side_path.read_text())
         if "variogram" not in side or "quantity" not in side:
             continue
@@ -472,6 +718,7 @@ def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str | None = N
                                              value_unit=side.get("value_unit") or "")
         xy, z, _, info = surface_points(store, side["unit"], side["quantity"], window=side.get("window"),
                                         at=side.get("at"), lower_unit=side.get("lower_unit"),
+                                        baseline=side.get("baseline"),
                                         policy=SelectionPolicy.from_dict((side.get("selection") or {}).get("policy")),
                                         tolerance_days=(DEFAULT_TOLERANCE_DAYS if side.get("tolerance_days") is None
                                                         else side["tolerance_days"]))
@@ -483,398 +730,135 @@ def make_figures(store: Store, *, out=".", surfaces=None, k_unit: str | None = N
         written += figures.cross_validation(output_path(out, f"crossval_{stem}"), z, cv["estimate"],
                                             std=cv["std"], unit=info["value_unit"],
                                             label=f"{side['unit']} {side['quantity']} ({side['method']})")
+    if board_map:  # the static map for reports, from the products the web map shows
+        from .board import board_map_figure
+
+        map_used: list = []
+        written += board_map_figure(store, out=out, unit=unit, surfaces=surfaces, title=title, k_unit=k_unit,
+                                    policy=policy, allow_stale=allow_stale, warnings=stale, used=map_used)
+        used = used + [p for p in map_used if p.name not in {u.name for u in used}]
+    if warnings is not None:
+        warnings.extend(stale)
+    if written:
+        command = products.command_line("figures", store, ("--k-unit", k_unit), ("--map", bool(board_map)),
+                                        ("--unit", unit if board_map else None), ("--title", title),
+                                        *products.policy_args(policy), ("--out", str(out)))
+        products.record_product(store, kind="figures", name=products.product_name(store, "figures", written[0]),
+                                files=written, parameters={"k_unit": k_unit, "n_figures": len(written)},
+                                selection={"policy": (policy or SelectionPolicy()).to_dict()},
+                                inputs=[p.name for p in used],
+                                command=command, digests=digests)
     return written
 
 
 # -- model grid (SPEC 2.10) ----------------------------------------------------------
-MODEL_MAX_CELLS = 20_000_000
-#: inverse-distance weighting of the contact surfaces (residuals from a least-squares plane)
-CONTACT_IDW_POWER = 2.0
-CONTACT_IDW_NEIGHBORS = 12
-CONTACT_METHOD = ("each contact between units (a unit's top and bottom) interpolated on its own from the picked "
-                  "elevations (ground_elev - depth) of the wells that give it: least-squares plane plus inverse-"
-                  f"distance weighting (power {CONTACT_IDW_POWER:g}, {CONTACT_IDW_NEIGHBORS} nearest wells) of the "
-                  "residuals, exact at the wells (to floating-point rounding); the plane is held flat beyond the "
-                  "wells' bounding box; each contact kept at or below the one above, and a unit's top and bottom "
-                  "made one outside its extent from the picks")
-
-
 def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=None, rotation: float = 0.0,
                layers: list[str] | None = None, kv_ratio: float = 10.0, k_source: str = "mean",
                min_thickness: float = 1.0, merge_down: bool = False, base: float | None = None,
                base_thickness: float | None = None, surfaces=None, max_cells: int | None = None,
-               policy: SelectionPolicy | None = None, mf6=None, spring_conductance: float | None = None) -> dict:
+               policy: SelectionPolicy | None = None, mf6=None, spring_conductance: float | None = None,
+               surface=None, allow_stale: bool = False) -> dict:
     """A regular model grid with one layer per unit: geometry, idomain, K_h, K_v, starting heads, icelltype.
 
-    Builds a :class:`hydroatlas.layering.ModelLayers` in the store's units (elevations and heads in its length
-    unit, K in that unit per day) and writes it with :func:`hydroatlas.export.modelgrid.write_model_grid` (NetCDF,
-    plain arrays, manifest.json) and, with ``mf6``, as a MODFLOW 6 simulation
-    (:func:`hydroatlas.export.mf6.write_mf6`). The K tests behind the layer K follow the selection policy (None:
-    the default); manifest.json holds it under ``selection``, and the selections of the head surfaces used for
-    starting heads under ``head_surface_selections``.
+    Reads the units, picks, wells, domain polygon and the K tests that pass the selection policy (None: the
+    default) from the store and the head (and, with ``k_source='surface'``, log-K) surfaces of the layers,
+    builds the layers with :func:`hydroatlas.modelbuild.build_model_layers` (in the store's units: elevations
+    and heads in its length unit, K in that unit per day) and writes them with
+    :func:`hydroatlas.export.modelgrid.write_model_grid` (NetCDF, plain arrays, manifest.json) and, with
+    ``mf6``, as a MODFLOW 6 simulation (:func:`hydroatlas.export.mf6.write_mf6`). manifest.json holds the K
+    selection under ``selection`` and the selections of the head surfaces used under
+    ``head_surface_selections``.
 
     Parameters
     ----------
-    cell : float
-        Cell size in CRS units.
-    origin : (x, y), optional
-        Lower-left corner of the grid (required with a rotation); default: snapped to the domain polygon or data.
-    shape : (rows, cols), optional
-        Default: enough cells to cover the domain (or data) extent.
-    rotation : float
-        Degrees counter-clockwise about the origin.
-    layers : list of unit codes, optional
-        In stratigraphic order; default every unit with picks. A unit left out between two chosen ones is merged
-        into the layer above (below with ``merge_down``); units above the first or below the last chosen one
-        are not in the model (the model top is the top of the first chosen unit).
-    kv_ratio : float
-        K_h / K_v of a unit without vertical K tests (and K_h = K_v x ratio of a unit with vertical tests only).
-    k_source : {'mean', 'surface'}
-        K_h from the geometric mean of the unit's horizontal tests, or from its log-K surface
-        (`hydroatlas surface --quantity logk`).
-    min_thickness : float
-        Thinnest active cell (store length unit); a thinner cell, or one where the unit is absent, is a vertical
-        pass-through cell (idomain -1) that keeps its true elevations.
-    merge_down : bool
-        Merge left-out units into the layer below instead of the layer above.
-    base, base_thickness : float, optional
-        Bottom of the lowest layer as an elevation, or as a thickness below its top (store length unit). Needed
-        where no well reaches the base of the lowest unit; without them the mean penetrated thickness is used,
-        with a warning in the notes.
+    cell, origin, shape, rotation, layers, kv_ratio, k_source, min_thickness, merge_down, base, base_thickness,
+    max_cells
+        See :class:`hydroatlas.modelbuild.ModelGridOptions` (cell and origin in CRS units, thicknesses and
+        elevations in the store's length unit).
+    surfaces : path, optional
+        Only surfaces whose files lie in this folder. The head (and log-K) surfaces of the layers come from the
+        store's product registry: the latest of each layer's unit, or those named in ``surface``.
+    surface : str or list of str, optional
+        Names of head or log-K surface products to use for their units instead of the latest.
+    allow_stale : bool
+        Use surfaces made from store rows that changed since (refused by default, StaleProductError); the
+        manifest and the result list them under ``stale_inputs_used``.
     mf6 : path, optional
         Folder for a MODFLOW 6 simulation (flopy needed).
     spring_conductance : float, optional
         Drain conductance of a spring cell in the MODFLOW 6 simulation (store length unit squared per day).
-
-    Geometry: see :mod:`hydroatlas.layering`. Each contact between successive units is interpolated from the
-    picks of the wells that give it (exact at the wells); the ground is the top of the first unit; a unit
-    absent at a well (:func:`hydroatlas.assign.unit_presence`) has its top and bottom at one elevation there
-    and zero thickness outside its extent. Layers are never stacked down from the ground, so leaving a unit out
-    or pinching one out moves no other layer.
     """
-    import math
     from datetime import datetime, timezone
 
-    from .. import layering
+    from .. import layering, modelbuild, products
     from ..export.modelgrid import write_model_grid
-    from ..quantities import k_from_ms, store_units
+    from .surfaces import read_logk_m_per_d
 
-    if not (isinstance(cell, (int, float)) and cell > 0):
-        raise ParameterError(f"--cell must be > 0; got {cell}")
-    if rotation and origin is None:
-        raise ParameterError("a rotated grid needs --origin X,Y (the lower-left corner it rotates about)")
-    if not kv_ratio > 0:
-        raise ParameterError(f"--kv-ratio must be > 0; got {kv_ratio}")
-    if not min_thickness > 0:
-        raise ParameterError(f"--min-thickness must be > 0; got {min_thickness}")
-    if k_source not in ("mean", "surface"):
-        raise ParameterError(f"k_source must be 'mean' or 'surface'; got {k_source!r}")
-    if base is not None and base_thickness is not None:
-        raise ParameterError("give --base or --base-thickness, not both")
-    if base is not None and not math.isfinite(base):
-        raise ParameterError(f"--base must be a finite elevation; got {base}")
-    if base_thickness is not None and not (math.isfinite(base_thickness) and base_thickness > 0):
-        raise ParameterError(f"--base-thickness must be > 0; got {base_thickness}")
-    _crs_to_m(store)  # refuses a geographic store CRS
+    # the registry: the store must take the record, and the digests come before any row is read
+    digests = products.input_digests(store, "model_grid")
+    products.ensure_writable(store)
+    store = Study.of(store, policy)  # the tables are read once for the whole grid
+
+    options = modelbuild.ModelGridOptions(
+        cell=cell, origin=origin, shape=shape, rotation=rotation, layers=layers, kv_ratio=kv_ratio,
+        k_source=k_source, min_thickness=min_thickness, merge_down=merge_down, base=base,
+        base_thickness=base_thickness, max_cells=max_cells)
+    metres_per_crs_unit(store.settings)  # refuses a geographic store CRS
     L = store.settings.length_unit
     units = store.read("units").sort_values("rank").reset_index(drop=True)
-    role_of = dict(zip(units["code"], units["role"]))
-    raw_picks = store.read("picks")
-    picks_all = assign.finest_picks(raw_picks, units)
-    wells = store.read("wells", ["well_id", "x", "y", "ground_elev", "total_depth"])
-    picked = set(picks_all["unit"])
-    # the sequence of units is the finest one (sub-units instead of their parent); a code covers its members
-    parents = set(units["parent"].dropna())
-    leaves = [c for c in units["code"] if c not in parents]
-    leaf_index = {c: i for i, c in enumerate(leaves)}
-    chains = assign.unit_ancestors(units)
-
-    def span(code):
-        idx = sorted(leaf_index[c] for c in leaves if c == code or code in chains[c])
-        if not idx:
-            raise ParameterError(f"unit {code} has no sub-units without sub-units of their own")
-        if idx != list(range(idx[0], idx[-1] + 1)):
-            raise ParameterError(f"the sub-units of {code} are not next to each other in rank; choose them as layers")
-        return idx[0], idx[-1]
-
-    if layers is None:
-        layers = [c for c in units["code"] if c in picked
-                  and not (c in parents and any(code in picked for code in _unit_members(units, c) - {c}))]
-        if not layers:
-            raise ParameterError("the store has no unit picks; a model grid needs them")
-    layers = list(layers)
-    for code in layers:
-        members = _unit_members(units, code)
-        if not members & picked:
-            raise ParameterError(f"unit {code} has no picks anywhere; its layer geometry is unknown")
-    spans = [span(c) for c in layers]
-    rank = dict(zip(units["code"], units["rank"]))
-    if len(set(layers)) != len(layers) or any(b[0] <= a[1] for a, b in zip(spans, spans[1:])):
-        raise ParameterError(f"layers {','.join(layers)} are not in stratigraphic order (top first) or overlap: "
-                             f"expected e.g. {','.join(sorted(dict.fromkeys(layers), key=rank.get))}")
-    groups, merged_idx, above_idx, below_idx = layering.layer_groups(len(leaves), spans, merge_down=merge_down)
-    merged = {code: [leaves[j] for j in m] for code, m in zip(layers, merged_idx) if m}
-    notes: list[str] = [f"layer geometry: {CONTACT_METHOD}"]
-    if above_idx:
-        notes.append(f"units above the first layer are not in the model: {', '.join(leaves[j] for j in above_idx)}; "
-                     f"the model top is the top of {layers[0]}")
-    if below_idx:
-        notes.append(f"units below the last layer are not in the model: {', '.join(leaves[j] for j in below_idx)}")
-    for code, m in merged.items():
-        notes.append(f"{', '.join(m)} merged into layer {code} ({'below' if merge_down else 'above'} "
-                     f"{'them' if len(m) > 1 else 'it'}): thickness-weighted arithmetic K_h, harmonic K_v")
-    # grid geometry
-    domain = _domain_polygons(store, layers[0])
-    if origin is None:
-        if domain is not None:
-            xmin, ymin, xmax, ymax = domain.total_bounds
-        else:
-            xmin, ymin = wells[["x", "y"]].min()
-            xmax, ymax = wells[["x", "y"]].max()
-        x0, y0 = math.floor(xmin / cell) * cell, math.floor(ymin / cell) * cell
-        ncol = max(1, int(math.ceil((xmax - x0) / cell - 1e-9)))
-        nrow = max(1, int(math.ceil((ymax - y0) / cell - 1e-9)))
-    else:
-        x0, y0 = (float(v) for v in origin)
-        if shape is None:
-            raise ParameterError("--origin needs --shape ROWS,COLS")
-    if shape is not None:
-        nrow, ncol = (int(v) for v in shape)
-        if nrow < 1 or ncol < 1:
-            raise ParameterError(f"--shape must be at least 1,1; got {shape}")
-    limit = max_cells or MODEL_MAX_CELLS
-    if nrow * ncol * len(layers) > limit:
-        raise ParameterError(f"{len(layers)} layers x {nrow} x {ncol} cells = {nrow * ncol * len(layers):,} cells, "
-                             f"more than the maximum of {limit:,}; choose a larger --cell")
-    xc, yc = layering.grid_cell_centres(x0, y0, cell, nrow, ncol, rotation)
-    pts = np.column_stack([xc.ravel(), yc.ravel()])
-    if domain is not None:
-        import shapely
-
-        active = shapely.contains_xy(domain.union_all(), pts[:, 0], pts[:, 1]).reshape(nrow, ncol)
-    else:
-        active = np.ones((nrow, ncol), bool)
-    if not active.any():
-        raise ParameterError("no cell of the grid lies inside the domain polygon")
-    # contacts at the wells, from the picks and the presence of each unit
-    wxy = wells[["x", "y"]].to_numpy(float)
-    ground_w = wells["ground_elev"].to_numpy(float)
-    row_of = {w: i for i, w in enumerate(wells["well_id"])}
-    n = len(leaves)
-    top_w = np.full((len(wells), n), np.nan)
-    bot_w = np.full((len(wells), n), np.nan)
-    known_w = np.zeros((len(wells), n), bool)
-    p = picks_all.merge(wells[["well_id", "ground_elev", "total_depth"]], on="well_id")
-    for r in p.itertuples(index=False):
-        if r.unit not in rank or r.well_id not in row_of:
-            continue
-        first, last = span(r.unit) if r.unit not in leaf_index else (leaf_index[r.unit],) * 2
-        i = row_of[r.well_id]
-        ended = np.isfinite(r.total_depth) and r.bottom_depth >= r.total_depth - 1e-6
-        if np.isnan(top_w[i, first]):
-            top_w[i, first] = r.ground_elev - r.top_depth
-        if np.isnan(bot_w[i, last]):
-            bot_w[i, last] = r.ground_elev - r.bottom_depth
-            known_w[i, last] = not ended
-    located = wells[["well_id", "x", "y"]]
-    presence = []
-    pres_w = np.full((len(wells), n), -1, dtype="int8")
-    for j, code in enumerate(leaves):
-        pres = assign.unit_presence(raw_picks, located, units, code)
-        presence.append(pres)
-        flag = pres["present"]
-        pres_w[:, j] = np.where(flag.isna(), -1, np.where(flag.fillna(False).astype(bool), 1, 0))
-    contacts_w, mismatch = layering.well_contacts(ground_w, top_w, bot_w, known_w, pres_w)
-    c_first, c_last = groups[0][0], groups[-1][1] + 1
-    raw = np.stack([layering.interpolate_surface(wxy, contacts_w[:, c], pts, power=CONTACT_IDW_POWER,
-                                                 neighbors=CONTACT_IDW_NEIGHBORS).reshape(nrow, ncol)
-                    for c in range(c_last + 1)])
-    inside = np.stack([assign.inside_extent(presence[j], pts).reshape(nrow, ncol) for j in range(c_last)])
-    outside_extent = {leaves[j]: int((~inside[j] & active).sum()) for j in range(c_first, c_last)}
-    with_data = np.isfinite(contacts_w).any(axis=0)
-    boundaries = {groups[0][0]} | {last + 1 for _, last in groups[:-1]}
-    for c in sorted(boundaries):
-        if c > 0 and not with_data[c]:
-            raise InsufficientDataError(f"no well gives the contact between {leaves[c - 1]} and {leaves[c]} (the "
-                                        f"picks of {leaves[c - 1]} all end at the wells' total depth and no well "
-                                        f"has a pick of {leaves[c]}); the layers there are unknown")
-    contacts = layering.order_contacts(raw, inside)
-    # the bottom of the lowest layer: picked, or --base / --base-thickness, or the stated default
-    base_unit = leaves[c_last - 1]
-    ceiling = contacts[c_first].copy()
-    for c in range(c_first + 1, c_last):
-        ceiling = np.where(np.isfinite(contacts[c]), contacts[c], ceiling)
-    n_base = int(np.isfinite(contacts_w[:, c_last]).sum())
-    rule = None
-    if base is not None:
-        bottom = np.minimum(base, ceiling)
-        rule = f"--base {base:g} {L}"
-    elif base_thickness is not None:
-        bottom = ceiling - base_thickness
-        rule = f"--base-thickness {base_thickness:g} {L}"
-    elif not with_data[c_last]:
-        here = p[p["unit"].isin(_unit_members(units, base_unit))]
-        pen = (here["bottom_depth"] - here["top_depth"]).to_numpy(float)
-        if pen.size == 0 or not np.isfinite(pen).any():
-            raise InsufficientDataError(f"the base of {base_unit} is unknown: give --base ELEV or --base-thickness")
-        t_mean = float(np.nanmean(pen))
-        bottom = ceiling - t_mean
-        rule = f"default: the mean penetrated thickness of {base_unit}, {t_mean:.4g} {L}"
-        notes.append(f"warning: no well reaches the base of {base_unit} (every pick of it ends at the well's total "
-                     f"depth); the lowest layer's bottom lies the mean penetrated thickness ({t_mean:.4g} {L}, a lower "
-                     "bound of the true thickness) below its top; give --base or --base-thickness to set it")
-    if rule is not None:
-        bottom = np.where(inside[c_last - 1], bottom, ceiling)
-        contacts[c_last] = np.minimum(bottom, ceiling)
-        if base is not None or base_thickness is not None:
-            notes.append(f"bottom of the lowest layer ({base_unit}) from {rule}"
-                         + (f"; it replaces the base picked at {n_base} well(s)" if n_base else ""))
-    for c in range(c_first + 1, c_last):  # a contact inside a merged layer that no well gives: zero thickness
-        miss = ~np.isfinite(contacts[c])
-        if miss.any():
-            contacts[c] = np.where(miss, contacts[c - 1], contacts[c])
-            notes.append(f"no well gives the top of {leaves[c]}: inside its layer it counts as zero thickness "
-                         "for the layer K")
-    off = mismatch[:, c_first:c_last + 1] > assign.EXTENT_TOLERANCE
-    if off.any():
-        notes.append(f"{int(off.any(axis=1).sum())} well(s) have picks that leave a gap or overlap at a contact "
-                     f"(largest {float(mismatch[:, c_first:c_last + 1].max()):.4g} {L}); the contact is the mean there")
-    top, botm, idomain, emptied = layering.layer_geometry(contacts, groups, min_thickness=min_thickness,
-                                                          active=active)
-    thick = np.concatenate([top[None], botm[:-1]]) - botm
-    pass_through = {code: int((idomain[k] == layering.PASS_THROUGH).sum()) for k, code in enumerate(layers)}
-    for code, count in pass_through.items():
-        if count:
-            notes.append(f"{code}: {count} cell(s) thinner than {min_thickness:g} {L} or where the unit is absent "
-                         "are vertical pass-through cells (idomain -1) with their true elevations")
-    if emptied:
-        notes.append(f"{emptied} column(s) inside the domain have no layer as thick as {min_thickness:g} {L}: "
-                     "made inactive (idomain 0)")
-    # hydraulic conductivity per unit: K_h from horizontal tests, K_v from vertical tests or the ratio
-    k_unit = store_units(L).k
-    asg = zone_assignment(store)
-    tests, k_left_out = select_ktests(store, policy, asg)
+    for code in options.layers or ():
+        assign.unit_members(units, code)  # an unknown code: named with the store's units
+    picks = store.read("picks")
+    plan = modelbuild.plan_layers(units, picks, layers=options.layers, merge_down=merge_down)
+    domain = Study.of(store).domain(plan.layers[0])
+    tests, k_left_out = select_ktests(store, policy, zone_assignment(store))
     k_selection = selection_record(policy, k_left_out)
     orient = store.read("ktests", ["well_id", "zone_id", "test_id", "orientation"])
     tests = tests.merge(orient, on=["well_id", "zone_id", "test_id"], how="left")
-    tests["orientation"] = tests["orientation"].fillna("horizontal")
-    folder = Path(surfaces) if surfaces is not None else Path(out).parent
-    k_info = {}
-
-    def unit_k(code, *, primary: bool):
-        """(K_h, K_v) of a unit in the store's K unit (arrays (nrow, ncol)) and what they rest on; None if no tests."""
-        mine = tests[tests["unit"].isin(_unit_members(units, code))]
-        horiz = mine.loc[mine["orientation"] == "horizontal", "k_ms"].to_numpy(float)
-        vert = mine.loc[mine["orientation"] == "vertical", "k_ms"].to_numpy(float)
-        gmean = (lambda v: float(k_from_ms(10.0 ** np.mean(np.log10(v)), k_unit)))
-        info = {"n_horizontal_tests": int(horiz.size), "n_vertical_tests": int(vert.size)}
-        if horiz.size:
-            kh = np.full((nrow, ncol), gmean(horiz))
-            info["k_h"] = f"geometric mean of {horiz.size} horizontal test(s)"
-        elif vert.size:
-            kh = np.full((nrow, ncol), gmean(vert) * kv_ratio)
-            info["k_h"] = f"no horizontal tests: K_v x --kv-ratio {kv_ratio:g}"
-        else:
-            return None, info
-        if primary and k_source == "surface":
-            from .surfaces import read_logk_m_per_d
-
-            grid_s, k_surface_md, _ = read_logk_m_per_d(folder, code, store)  # the surface's K unit -> m/d
-            k_md = 10.0 ** _sample_grid(grid_s, np.log10(k_surface_md), pts).reshape(nrow, ncol)
-            from ..quantities import convert
-
-            kh = np.where(np.isfinite(k_md), convert(k_md, "m/d", k_unit, "hydraulic conductivity"), kh)
-            info["k_h"] = "log-K surface sampled at the cells (the test mean where it has no value)"
-        if vert.size:
-            kv = np.full((nrow, ncol), gmean(vert))
-            info["k_v"] = f"geometric mean of {vert.size} vertical test(s)"
-        else:
-            kv = kh / kv_ratio
-            info["k_v"] = f"K_h / --kv-ratio {kv_ratio:g} (no vertical tests)"
-        return (kh, kv), info
-
-    kh_layers, kv_layers = [], []
-    for k, (code, (first, last)) in enumerate(zip(layers, groups)):
-        own, info = unit_k(code, primary=True)
-        if own is None:
-            raise InsufficientDataError(f"unit {code} has no K tests; its layer K is unknown: import tests of it, or "
-                                        "leave it out of --layers (a unit between two layers joins one of them)")
-        k_info[code] = info
-        parts_b, parts_h, parts_v = [], [], []
-        own_first, own_last = spans[k]
-        parts_b.append(contacts[own_first] - contacts[own_last + 1])
-        parts_h.append(own[0])
-        parts_v.append(own[1])
-        for j in merged_idx[k]:
-            got, minfo = unit_k(leaves[j], primary=False)
-            if got is None:
-                got = own
-                notes.append(f"warning: {leaves[j]} (merged into layer {code}) has no K tests: it takes the K of "
-                             f"{code}; choose the layers so that it joins a unit of its kind (--merge-down)")
-            k_info[f"{leaves[j]} (merged into {code})"] = minfo
-            parts_b.append(contacts[j] - contacts[j + 1])
-            parts_h.append(got[0])
-            parts_v.append(got[1])
-        kh, kv = layering.effective_k(np.stack(parts_b), np.stack(parts_h), np.stack(parts_v), primary=0)
-        kh_layers.append(kh)
-        kv_layers.append(kv)
-        if role_of.get(code) in layering.CONFINING_ROLES and not info["n_vertical_tests"]:
-            notes.append(f"{code} ({role_of.get(code)}): no vertical K tests (column orientation); "
-                         f"K_v = K_h / {kv_ratio:g}")
-    # starting heads: each layer's own head surface, masked outside its unit's extent; aquitards and layers
-    # without a surface lie between the layers with heads above and below
-    roles = [role_of.get(c, "other") for c in layers]
-    confining = np.array([r in layering.CONFINING_ROLES for r in roles])
-    own_heads = np.full((len(layers), nrow, ncol), np.nan)
-    have = []
-    for k, code in enumerate(layers):
-        if not unit_path(folder, code, "head.tif").is_file():
-            have.append(False)
-            continue
-        grid_s, h = read_surface(folder, code, "head", store.location)
-        hv = _sample_grid(grid_s, h, pts).reshape(nrow, ncol)
-        own_first, own_last = spans[k]
-        in_unit = inside[own_first:own_last + 1].any(axis=0)
-        own_heads[k] = np.where(in_unit, hv, np.nan)
-        have.append(True)
-    if not any(have):
-        raise ParameterError(f"no head surface for any layer in {folder}; make one with 'hydroatlas surface "
-                             f"{store.location} --unit {layers[0]} --quantity head --out {folder}'")
-    if not np.isfinite(own_heads).any():
-        raise InsufficientDataError(f"the head surfaces in {folder} have no value inside the grid")
-    strt, strt_source = layering.starting_heads(own_heads, top, botm, confining=confining)
-    for k, code in enumerate(layers):
-        counts = {c: int((strt_source[k][active] == c).sum()) for c in layering.STRT_SOURCES}
-        if not have[k]:
-            notes.append(f"{code} has no head surface of its own (none in {folder}): its starting heads are "
-                         f"{_strt_words(counts)}")
-        elif confining[k]:
-            notes.append(f"{code} ({roles[k]}): starting heads {_strt_words(counts)}; its own head surface is used "
-                         "only where a side has no head")
-        elif counts[layering.STRT_OWN] < int(active.sum()):
-            notes.append(f"{code}: starting heads from its own head surface in {counts[layering.STRT_OWN]} of "
-                         f"{int(active.sum())} active columns; elsewhere {_strt_words(counts, skip_own=True)}")
-    icelltype, icell_why = layering.cell_types(roles, strt, top, botm, idomain)
-    notes += [f"{code}: icelltype {int(t)} ({why})" for code, t, why in zip(layers, icelltype, icell_why)]
-    model = layering.ModelLayers(
-        units=list(layers), roles=roles, top=top, botm=botm, idomain=idomain, k=np.stack(kh_layers),
-        k33=np.stack(kv_layers), strt=strt, icelltype=icelltype, length_unit=L, k_unit=k_unit, time_unit="days",
-        merged=merged, notes=notes, x0=x0, y0=y0, cell=float(cell), nrow=nrow, ncol=ncol, rotation=float(rotation),
-        crs=store.settings.crs, strt_source=strt_source)
-    grid_info = {"min_thickness": min_thickness, "kv_ratio": kv_ratio, "k_source": k_source,
-                 "merge_down": bool(merge_down), "base": base, "base_thickness": base_thickness,
-                 "base_rule": rule or f"picked at {n_base} well(s)",
-                 "cells_outside_unit_extent": outside_extent, "pass_through_cells": pass_through}
+    named = {}
+    for name in ([surface] if isinstance(surface, str) else list(surface or ())):
+        prod = products.find_product(store, kind="surface", name=name)
+        if prod.quantity not in ("head", "logk") or prod.unit not in plan.layers:
+            raise ParameterError(f"surface= names {prod.describe()}; give head or log-K surfaces of the layers "
+                                 f"({', '.join(plan.layers)})", param="surface")
+        named[(prod.unit, prod.quantity)] = name
+    head_prods = {code: products.find_product(store, kind="surface", unit=code, quantity="head", folder=surfaces,
+                                              name=named.get((code, "head")), required=False)
+                  for code in plan.layers}
+    head_prods = {code: p for code, p in head_prods.items() if p is not None}
+    if not head_prods:
+        raise ParameterError(f"no head surface of any layer ({', '.join(plan.layers)}) is recorded in the store"
+                             + (f" with its files in {surfaces}" if surfaces is not None else "")
+                             + f"; make one with 'hydroatlas surface {store.location} --unit {plan.layers[0]} "
+                             "--quantity head'")
+    logk_prods = ({code: products.find_product(store, kind="surface", unit=code, quantity="logk", folder=surfaces,
+                                               name=named.get((code, "logk")))
+                   for code in plan.layers} if k_source == "surface" else {})
+    used = list(head_prods.values()) + list(logk_prods.values())
+    for prod in used:
+        products.check_files(prod)
+    stale = products.check_fresh(store, used, allow_stale=allow_stale)
+    heads = {code: read_grid(p.file("head.tif")) for code, p in head_prods.items()}
+    k_surfaces = ({code: read_logk_m_per_d(p, code, store)[:2] for code, p in logk_prods.items()}
+                  if k_source == "surface" else None)  # the surface's K unit -> m/d
+    built = modelbuild.build_model_layers(
+        options, units=units, picks=picks, wells=store.read("wells", ["well_id", "x", "y", "ground_elev",
+                                                                      "total_depth"]),
+        tests=tests, head_surfaces=heads, k_surfaces=k_surfaces,
+        domain=None if domain is None else domain.union_all(), length_unit=L, crs=store.settings.crs, plan=plan,
+        heads_from="the store's product registry")
+    model = built.model
     history = (f"{datetime.now(timezone.utc).isoformat(timespec='seconds')} hydroatlas model_grid(cell={cell}, "
-               f"origin={origin}, shape={shape}, rotation={rotation}, layers={layers}, kv_ratio={kv_ratio}, "
-               f"k_source={k_source}, min_thickness={min_thickness}, merge_down={merge_down}, base={base}, "
-               f"base_thickness={base_thickness})")
+               f"origin={origin}, shape={shape}, rotation={rotation}, layers={list(plan.layers)}, "
+               f"kv_ratio={kv_ratio}, k_source={k_source}, min_thickness={min_thickness}, merge_down={merge_down}, "
+               f"base={base}, base_thickness={base_thickness})")
     source = f"hydroatlas store {store.location} (length unit {L}, vertical datum {store.settings.vertical_datum})"
-    extra = {"grid": grid_info, "geometry_method": CONTACT_METHOD, "k_sources": k_info,
+    extra = {"grid": built.grid_info, "geometry_method": CONTACT_METHOD, "k_sources": built.k_info,
              "strt_sources": {str(c): w for c, w in layering.STRT_SOURCES.items()},
              "selection": k_selection,
-             "head_surface_selections": {code: sidecar_selection(unit_path(folder, code, "head.json"))
-                                         for code, ok in zip(layers, have) if ok}}
+             "head_surface_selections": {code: sidecar_selection(p.file("head.json"))
+                                         for code, p in head_prods.items()},
+             "input_products": [p.name for p in used], "stale_inputs_used": stale}
     mf6_summary = None
     if mf6 is not None:  # written first, so that the manifest can say what it holds (wells, springs, conductance)
         from ..export.mf6 import model_name, pumping_now, write_mf6
@@ -884,33 +868,28 @@ def model_grid(store: Store, *, cell: float, out="model.nc", origin=None, shape=
         mf6_summary = write_mf6(mf6, model, wells=pumped, springs=springs, spring_conductance=spring_conductance,
                                 name=model_name(Path(out).stem))
         extra["mf6"] = mf6_summary
-    files = write_model_grid(out, model, history=history, source=source, caution=CAUTION, manifest_extra=extra)
+    files = write_model_grid(out, model, history=history, source=source, caution=caution_text("model_grid"), manifest_extra=extra)
     if mf6_summary is not None:
         files["mf6"] = mf6_summary["folder"]
-    return {"files": files, "mf6": mf6_summary, "layers": list(layers), "shape": (len(layers), nrow, ncol), "model_layers": model,
-            "arrays": {"top": top, "botm": botm, "idomain": idomain, "k": model.k, "k33": model.k33, "strt": strt,
-                       "icelltype": icelltype, "thickness": thick},
-            "active": active, "x": xc, "y": yc, "grid": grid_info, "merged": merged, "notes": notes,
-            "selection": k_selection}
-
-
-def _strt_words(counts: dict, *, skip_own: bool = False) -> str:
-    """Where a layer's starting heads come from, in words with cell counts (active columns)."""
-    from ..layering import STRT_BETWEEN, STRT_MEAN, STRT_ONE_SIDE, STRT_OWN
-
-    words = {STRT_OWN: "from its own head surface", STRT_BETWEEN: "linear in elevation between the layers with "
-             "heads above and below", STRT_ONE_SIDE: "those of the nearest layer with heads (one side only)",
-             STRT_MEAN: "the layer's mean (no head in any layer)"}
-    parts = [f"{words[c]} in {v} cell(s)" for c, v in counts.items() if v and not (skip_own and c == STRT_OWN)]
-    return "; ".join(parts) if parts else "none in the active cells"
-
-
-def _sample_grid(grid, values, pts) -> np.ndarray:
-    """Bilinear sample of a north-up grid at points (NaN outside or next to no-data)."""
-    from scipy.interpolate import RegularGridInterpolator
-
-    xs = grid.x_centers()
-    ys = grid.y_centers()
-    f = RegularGridInterpolator((ys[::-1], xs), np.asarray(values, float)[::-1], bounds_error=False,
-                                fill_value=np.nan)
-    return f(np.column_stack([pts[:, 1], pts[:, 0]]))
+    command = products.command_line(
+        "grid", store, ("--cell", cell), ("--origin", origin), ("--shape", shape), ("--rotation", rotation or None),
+        ("--layers", None if layers is None else list(layers)), ("--kv-ratio", None if kv_ratio == 10.0 else kv_ratio),
+        ("--k-source", None if k_source == "mean" else k_source),
+        ("--min-thickness", None if min_thickness == 1.0 else min_thickness), ("--merge-down", bool(merge_down)),
+        ("--base", base), ("--base-thickness", base_thickness), ("--max-cells", max_cells),
+        *[("--surface", n) for n in named.values()], ("--mf6", None if mf6 is None else str(mf6)),
+        ("--spring-conductance", spring_conductance), *products.policy_args(policy), ("--out", str(out)))
+    products.record_product(store, kind="model_grid",
+                            name=products.product_name(store, f"grid_{Path(out).stem}", files["netcdf"]),
+                            files=[files["netcdf"], files["manifest"], files["arrays"]]
+                            + ([files["mf6"]] if "mf6" in files else []),
+                            parameters={"layers": list(plan.layers), "cell": cell, "shape": list(model.top.shape),
+                                        "k_source": k_source, "rotation": rotation},
+                            selection=k_selection, inputs=[p.name for p in used], command=command, digests=digests)
+    return {"files": files, "mf6": mf6_summary, "layers": list(plan.layers),
+            "shape": (model.nlay, model.nrow, model.ncol), "model_layers": model,
+            "arrays": {"top": model.top, "botm": model.botm, "idomain": model.idomain, "k": model.k,
+                       "k33": model.k33, "strt": model.strt, "icelltype": model.icelltype,
+                       "thickness": built.thickness},
+            "active": built.active, "x": built.x, "y": built.y, "grid": built.grid_info, "merged": plan.merged,
+            "notes": list(model.notes), "selection": k_selection, "stale_inputs_used": stale}

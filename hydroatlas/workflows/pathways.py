@@ -7,18 +7,20 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..errors import HydroatlasError, InsufficientDataError, ParameterError
+from ..errors import InsufficientDataError, ParameterError
 from ..export.names import ensure_folder, unit_path, write_csv
 from ..store import Store
-from .store_jobs import CAUTION, _crs_to_m, _length_to_m, _unit_members, zone_assignment
+from ..cautions import KARST_WARNING, caution_text
+from ..assign import unit_members
+from ..study import Study, metres_per_crs_unit, metres_per_length_unit
+from .store_jobs import zone_assignment
 from .store_jobs import unit_stats_selected
 from ..selection import SelectionPolicy, selection_record, sidecar_selection
-from .surfaces import read_surface
+from .surfaces import read_grid
 
 
 # -- pathways (SPEC 2.8) -----------------------------------------------------------
-KARST_WARNING = ("Darcy travel times on a smooth head surface are upper bounds in karst: conduits can carry water "
-                 "orders of magnitude faster, and particle paths do not see conduits, faults or barriers.")
+# KARST_WARNING (imported above from hydroatlas.cautions) describes the pathlines and contributing_areas layers
 
 
 def _unit_recharge(store: Store, unit: str):
@@ -37,22 +39,6 @@ def _recharge_areas(store: Store, unit: str):
     return rech
 
 
-def _seed_points(polygon, spacing: float) -> np.ndarray:
-    import shapely
-
-    xmin, ymin, xmax, ymax = polygon.bounds
-    xs = np.arange(xmin + spacing / 2, xmax, spacing)
-    ys = np.arange(ymin + spacing / 2, ymax, spacing)
-    gx, gy = np.meshgrid(xs, ys)
-    gx, gy = gx.ravel(), gy.ravel()
-    inside = shapely.contains_xy(polygon, gx, gy)
-    pts = np.column_stack([gx[inside], gy[inside]])
-    if len(pts) == 0:
-        c = polygon.representative_point()
-        pts = np.array([[c.x, c.y]])
-    return pts
-
-
 #: bounds of the capture radius of a sink, in cells of the head surface and as a share of its shorter side
 CAPTURE_RADIUS_MIN_CELLS = 0.25
 CAPTURE_RADIUS_MAX_SHARE = 0.25
@@ -60,24 +46,55 @@ CAPTURE_RADIUS_MAX_SHARE = 0.25
 SPRING_RADIUS_CELLS = 2.0
 
 
-def read_scenario(store: Store, unit: str, folder, name: str):
-    """A drawdown scenario written by ``drawdown --name NAME``: its sidecar and its head surface (grid, head)."""
+def read_scenario(store: Store, unit: str, name: str, *, folder=None, allow_stale: bool = False):
+    """A drawdown scenario recorded in the store (``drawdown --name NAME``, or the product name of any scenario).
+
+    ``folder`` narrows the search to scenarios whose files lie there. Refuses a scenario made from rows that
+    changed since (see :func:`hydroatlas.products.check_fresh`; ``allow_stale`` uses it with a warning).
+    Returns (product, sidecar, grid, head after the scenario, warnings).
+    """
     import json
 
-    stem = scenario_stem(name)
-    side = unit_path(folder, unit, f"drawdown_{stem}.json")
-    tif = unit_path(folder, unit, f"head_{stem}.tif")
-    if not side.is_file() or not tif.is_file():
-        raise ParameterError(f"no drawdown scenario {name!r} for unit {unit} in {folder}; make it with "
-                             f"'hydroatlas drawdown {store.location} --unit {unit} ... --name {name} --out {folder}'")
+    from .. import products
+
+    def match(p):
+        return p.parameters.get("scenario") == name or p.name == name
+
+    prod = products.find_product(store, kind="drawdown", unit=unit, folder=folder, match=match, required=False)
+    if prod is None:
+        where = f" with its files in {folder}" if folder is not None else ""
+        raise ParameterError(f"no drawdown scenario {name!r} of unit {unit} is recorded in the store "
+                             f"{store.location}{where}; make it with 'hydroatlas drawdown {store.location} --unit "
+                             f"{unit} --days N --name {name}'")
+    products.check_files(prod)
+    warnings = products.check_fresh(store, prod, allow_stale=allow_stale)
+    side = next(Path(f) for f in prod.files if f.endswith(".json"))
     try:
         info = json.loads(side.read_text(encoding="utf-8"))
     except (OSError, ValueError) as exc:
         raise ParameterError(f"cannot read the scenario sidecar {side}: {exc}") from None
     if info.get("unit") != unit or "baseline" not in info:
         raise ParameterError(f"{side} is not a drawdown scenario sidecar of unit {unit}")
-    grid, head = read_surface(folder, unit, f"head_{stem}", store.location)
-    return info, grid, head
+    grid, head = read_grid(info["files"]["head"])
+    return prod, info, grid, head, warnings
+
+
+def _named_surfaces(store: Store, unit: str, names) -> dict:
+    """{'head': name or None, 'logk': name or None} from the names of ``surface=`` (one name or several)."""
+    from .. import products
+
+    names = [names] if isinstance(names, str) else list(names or ())
+    found = {"head": None, "logk": None}
+    for name in names:
+        prod = products.find_product(store, kind="surface", unit=unit, name=name)
+        if prod.quantity not in found:
+            raise ParameterError(f"surface= names {prod.describe()}; give a head or log-K surface of unit {unit}",
+                                 param="surface")
+        if found[prod.quantity] is not None:
+            raise ParameterError(f"surface= names two {prod.quantity} surfaces ({found[prod.quantity]}, {name}); "
+                                 "give one", param="surface")
+        found[prod.quantity] = name
+    return found
 
 
 def _spring_discharge_m3d(store: Store, window: dict) -> dict:
@@ -114,7 +131,7 @@ def path_sinks(store: Store, unit: str, *, window: dict, grid, regional_head, k_
     """
     from .. import flow
 
-    crs_to_m = _crs_to_m(store)
+    crs_to_m = metres_per_crs_unit(store.settings)
     springs = store.read("springs", ["spring_id", "x", "y"])
     _, base = baseline_pumping(store, unit, window)
     rates = dict(zip(base["well_id"], base["rate_m3d"].astype(float)))
@@ -144,14 +161,15 @@ def path_sinks(store: Store, unit: str, *, window: dict, grid, regional_head, k_
         per = _unit_picks(store, unit)
         if per.empty:
             raise InsufficientDataError(f"unit {unit} has no picks; its thickness, which sets the capture radius "
-                                        "of springs and wells, is unknown; give --capture-radius")
+                                        "of springs and wells, is unknown; give capture_radius=",
+                                        param="capture_radius")
         mean_b = float((per["bottom_depth"] - per["top_depth"]).mean())
-        b_m = np.full(len(pts), mean_b * _length_to_m(store))
+        b_m = np.full(len(pts), mean_b * metres_per_length_unit(store.settings))
         warnings.append(f"no well penetrates unit {unit} fully; the capture radii use the mean thickness of its "
                         f"picks ({mean_b:.4g} {store.settings.length_unit}), which may be too small")
     warnings += b_warn
     gradient, _ = flow.grid_gradient(regional_head, grid.cell,
-                                     vertical_per_horizontal=_length_to_m(store) / crs_to_m)
+                                     vertical_per_horizontal=metres_per_length_unit(store.settings) / crs_to_m)
     i_pt = flow.values_at(grid.x0, grid.y0, grid.cell, gradient, pts, search=2)
     k_pt = (flow.values_at(grid.x0, grid.y0, grid.cell, k_md, pts, search=2) if np.ndim(k_md) == 2
             else np.full(len(pts), float(k_md)))
@@ -187,7 +205,7 @@ def path_sinks(store: Store, unit: str, *, window: dict, grid, regional_head, k_
 def _sink_records(store: Store, sinks: pd.DataFrame) -> list[dict]:
     """The sinks for a sidecar, each number with its unit (rates, thickness and flux in the store's units)."""
     L = store.settings.length_unit
-    len_m = _length_to_m(store)
+    len_m = metres_per_length_unit(store.settings)
     rows = []
     for r in sinks.to_dict(orient="records"):
         row = {"id": r["id"], "kind": r["kind"], "x": r["x"], "y": r["y"],
@@ -204,8 +222,16 @@ def _sink_records(store: Store, sinks: pd.DataFrame) -> list[dict]:
 def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=None, backward: bool = False,
                 k_source: str = "mean", seed_spacing: float | None = None, capture_radius: float | None = None,
                 max_years: float = 1000.0, seeds_per_spring: int = 72,
-                policy: SelectionPolicy | None = None, scenario: str | None = None) -> dict:
+                policy: SelectionPolicy | None = None, scenario: str | None = None, surface=None,
+                allow_stale: bool = False) -> dict:
     """Track particles on a unit's head surface: forward from recharge areas, or backward from springs.
+
+    The head surface (and with ``k_source='surface'`` the log-K surface) comes from the store's product
+    registry: the surfaces named in ``surface`` (one product name or several), else the latest of the unit
+    (with ``surfaces``, a folder: the latest whose files lie there). A surface made from store rows that
+    changed since is refused (StaleProductError naming the command that remakes it) unless ``allow_stale``;
+    then the sidecar lists it under ``stale_inputs_used``. The pathways (and, backward, the contributing
+    areas) are recorded in the registry with the names of the products used.
 
     The K tests behind the unit's mean K follow the selection policy (None: the default); the sidecar's
     ``selection`` says which, ``head_surface_selection`` repeats that of the head surface used.
@@ -213,9 +239,9 @@ def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=N
     Sinks are the springs and the wells pumping at the end of the head window,
     each capturing within its stagnation distance (:func:`path_sinks`); wells
     that stopped are not sinks. With ``scenario`` (a name given to ``drawdown
-    --name``) particles move on that scenario's head surface
-    (<unit>_head_<name>.tif in the surfaces folder) and the scenario's rates
-    decide the sinks, so a proposed well's capture shows.
+    --name``, or the product name of a scenario) particles move on that scenario's
+    head surface, found in the registry, and the scenario's rates decide the
+    sinks, so a proposed well's capture shows.
 
     Writes the ``pathlines`` layer (and ``contributing_areas`` when backward) of OUT/layers.gpkg,
     OUT/<unit>_pathways.csv (backward: OUT/<unit>_pathways_backward.csv; a scenario adds
@@ -232,33 +258,52 @@ def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=N
         raise ParameterError(f"effective porosity must be in (0, 1]; got {porosity}")
     if k_source not in ("mean", "surface"):
         raise ParameterError(f"k_source must be 'mean' or 'surface'; got {k_source!r}")
-    crs_to_m = _crs_to_m(store)
+    from .. import products
+
+    # the registry: the store must take the record, and the digests come before any row is read
+    kind = "contributing_areas" if backward else "pathways"
+    digests = products.input_digests(store, kind)
+    products.ensure_writable(store)
+    store = Study.of(store, policy)  # the tables are read once for the whole job
+    crs_to_m = metres_per_crs_unit(store.settings)
     units = store.read("units")
-    _unit_members(units, unit)
+    unit_members(units, unit)
     out = Path(out)
-    folder = Path(surfaces) if surfaces is not None else out
+    named = _named_surfaces(store, unit, surface)
     scn = None
+    used, stale = [], []
     if scenario is not None:
-        scn, grid, head = read_scenario(store, unit, folder, scenario)
+        scn_prod, scn, grid, head, stale = read_scenario(store, unit, scenario, folder=surfaces,
+                                                         allow_stale=allow_stale)
+        used.append(scn_prod)
         hw = scn["baseline"]["head_window"]
         window = {"start": pd.Timestamp(hw["from"]), "end": pd.Timestamp(hw["to"]), "text": hw["text"],
                   "source": f"{hw['source']}, as recorded by the scenario"}
-        regional = read_surface(folder, unit, "head", store.location)[1] \
-            if unit_path(folder, unit, "head.tif").is_file() else None
+        base = products.get_product(store, scn.get("baseline", {}).get("head_surface_product")
+                                    or (scn_prod.inputs[0] if scn_prod.inputs else ""))
+        regional = read_grid(base.files[0])[1] if base is not None and not base.missing_files() else None
         if regional is None or regional.shape != head.shape:
             regional = head
+        head_prod = base
     else:
-        grid, head = read_surface(folder, unit, "head", store.location)
-        window = head_window(store, unit, folder)
+        head_prod, stale = products.use_product(store, kind="surface", unit=unit, quantity="head",
+                                                name=named["head"], folder=surfaces, allow_stale=allow_stale)
+        used.append(head_prod)
+        grid, head = read_grid(head_prod.file("head.tif"))
+        window = head_window(store, unit, head_prod)
         regional = head
     if k_source == "surface":
         from .surfaces import read_logk_m_per_d
 
-        kgrid, k_md, k_surface_unit = read_logk_m_per_d(folder, unit, store)
+        logk_prod, more = products.use_product(store, kind="surface", unit=unit, quantity="logk",
+                                               name=named["logk"], folder=surfaces, allow_stale=allow_stale)
+        used.append(logk_prod)
+        stale += more
+        kgrid, k_md, k_surface_unit = read_logk_m_per_d(logk_prod, unit, store)
         if kgrid.shape != grid.shape or abs(kgrid.x0 - grid.x0) > 1e-6 or abs(kgrid.cell - grid.cell) > 1e-9:
             raise ParameterError("the head and log-K surfaces of the unit are on different grids; "
-                                 "make both with the same --cell")
-        k_info = {"source": "log-K surface", "file": str(unit_path(folder, unit, "logk.tif")),
+                                 "make both with the same cell=", param="cell")
+        k_info = {"source": "log-K surface", "file": str(logk_prod.file("logk.tif")), "product": logk_prod.name,
                   "surface_values": f"log10 of K in {k_surface_unit}", "k_unit": k_surface_unit}
     else:
         rows, k_selection = unit_stats_selected(store, k_unit="m/d", policy=policy)
@@ -273,7 +318,7 @@ def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=N
         k_info = {"source": "unit geometric mean", "k": convert(k_md, "m/d", k_unit, "hydraulic conductivity"),
                   "k_unit": k_unit}
     field = flow.VelocityGrid.from_head(grid.x0, grid.y0, grid.cell, head, k_md, porosity,
-                                        vertical_per_horizontal=_length_to_m(store) / crs_to_m,
+                                        vertical_per_horizontal=metres_per_length_unit(store.settings) / crs_to_m,
                                         k_per_day_to_crs=1.0 / crs_to_m)
     springs = store.read("springs")
     if springs.empty:
@@ -288,20 +333,16 @@ def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=N
     radius = sinks["radius"].to_numpy(float)
     t_max = max_years * 365.25
     recharge = _recharge_areas(store, unit) if not backward else None
-    if backward:
-        ang = np.linspace(0, 2 * np.pi, seeds_per_spring, endpoint=False)
-        seeds, origin = [], []
-        for j, (sid, x, y) in enumerate(springs[["spring_id", "x", "y"]].itertuples(index=False)):
-            r_s = radius[j]  # the springs come first among the sinks
-            seeds.append(np.column_stack([x + 1.01 * r_s * np.cos(ang), y + 1.01 * r_s * np.sin(ang)]))
-            origin += [sid] * len(ang)
-        seeds = np.vstack(seeds)
+    if backward:  # the springs come first among the sinks
+        seeds, owner = flow.ring_seeds(springs[["x", "y"]].to_numpy(float), radius[:len(springs)],
+                                       per_centre=seeds_per_spring)
+        origin = list(springs["spring_id"].to_numpy()[owner])
         res = flow.track(seeds, field, backward=True, t_max=t_max, max_step=0.5 * grid.cell)
     else:
         seeds, origin = [], []
         for aid, geom in zip(recharge["area_id"], recharge.geometry):
             spacing = seed_spacing or max(grid.cell, float(np.sqrt(geom.area / 200.0)))
-            pts = _seed_points(geom, spacing)
+            pts = flow.seed_points(geom, spacing)
             seeds.append(pts)
             origin += [aid] * len(pts)
         seeds = np.vstack(seeds)
@@ -322,13 +363,20 @@ def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=N
     write_layer(gpkg, "pathlines", gdf, description=KARST_WARNING)
     files = {"pathlines": f"{gpkg}:pathlines"}
     if backward:
-        ca, table = _contributing_areas(store, unit, field, grid, head, springs, sink_xy, radius, t_max)
+        rech_all = _unit_recharge(store, unit)  # possibly none: the table is then empty
+        polys, table = flow.contributing_areas(field, np.isfinite(head), sink_xy, radius, t_max=t_max,
+                                               targets=list(springs["spring_id"]),
+                                               areas=list(zip(rech_all["area_id"], rech_all.geometry)))
+        ca = gpd.GeoDataFrame(polys.rename(columns={"sink_id": "spring_id"}).assign(unit=unit)[
+            ["spring_id", "unit", "cells", "area", "median_days", "geometry"]], geometry="geometry",
+            crs=store.settings.crs)
+        table = table.rename(columns={"sink_id": "spring_id", "area_id": "recharge_area"})
         ca["scenario"] = scenario_label
         ca = _keep_other_rows(gpkg, "contributing_areas", ca, (unit, scenario_label), ("unit", "scenario"))
         write_layer(gpkg, "contributing_areas", ca, description=KARST_WARNING)
         files["contributing_areas"] = f"{gpkg}:contributing_areas"
     else:
-        table = _forward_table(origin, end_label, res.time)
+        table = flow.travel_summary(origin, end_label, res.time).rename(columns={"origin": "recharge_area"})
     tail = "pathways" + ("_backward" if backward else "") + ("" if scenario is None else f"_{scenario_stem(scenario)}")
     files["table"] = str(write_csv(unit_path(out, unit, f"{tail}.csv"), table))
     side = {"unit": unit, "direction": direction, "porosity": porosity, "k": k_info,
@@ -336,15 +384,32 @@ def trace_paths(store: Store, unit: str, *, porosity: float, out=".", surfaces=N
                                else "per sink: stagnation distance Q / (2 pi b q), Javandel and Tsang (1986)"),
             "sinks": _sink_records(store, sinks), "head_window": window_record(window), "scenario": scenario,
             "warnings": warnings, "max_years": max_years, "n_particles": int(len(seeds)),
-            "head_surface": str(unit_path(folder, unit, "head.tif" if scenario is None
-                                          else f"head_{scenario_stem(scenario)}.tif")),
+            "head_surface": str(scn["files"]["head"] if scn is not None else head_prod.file("head.tif")),
+            "input_products": [p.name for p in used], "stale_inputs_used": stale,
             "integrator": "Dormand-Prince 5(4), adaptive",
-            "caution": CAUTION, "karst_warning": KARST_WARNING, "files": files,
+            "caution": caution_text("pathways"), "karst_warning": KARST_WARNING, "files": files,
             # K tests behind the mean K here; the surfaces' own selections are in their sidecars
-            "selection": (k_selection if k_source == "mean"
-                          else sidecar_selection(unit_path(folder, unit, "logk.json"))),
-            "head_surface_selection": sidecar_selection(unit_path(folder, unit, "head.json"))}
+            "selection": (k_selection if k_source == "mean" else sidecar_selection(logk_prod.file("logk.json"))),
+            "head_surface_selection": (sidecar_selection(head_prod.file("head.json")) if head_prod is not None
+                                       and scn is None else (scn or {}).get("head_surface_selection"))}
+    table_path = unit_path(out, unit, f"{tail}.csv")
+    side["product"] = products.product_name(
+        store, f"{unit}_{kind}" + ("" if scenario is None else f"_{scenario_stem(scenario)}"), table_path)
     files["sidecar"] = str(write_sidecar(unit_path(out, unit, f"{tail}.json"), side))
+    command = products.command_line(
+        "paths", store, ("--unit", unit), ("--porosity", porosity), ("--backward", bool(backward)),
+        ("--k-source", None if k_source == "mean" else k_source), ("--seed-spacing", seed_spacing),
+        ("--capture-radius", capture_radius), ("--scenario", scenario),
+        *[("--surface", n) for n in (named["head"], named["logk"]) if n],
+        ("--max-years", None if max_years == 1000.0 else max_years), *products.policy_args(policy),
+        ("--out", str(out)))
+    products.record_product(store, kind=kind, name=side["product"], unit=unit, quantity="travel time",
+                            value_unit="d", files=[files["table"], files["sidecar"], str(gpkg)],
+                            parameters={"direction": direction, "porosity": porosity, "k": k_info,
+                                        "scenario": scenario, "max_years": max_years,
+                                        "layers": ["pathlines"] + (["contributing_areas"] if backward else [])},
+                            head_window=side["head_window"], selection=side["selection"],
+                            inputs=side["input_products"], command=command, digests=digests)
     side["table"] = table
     return side
 
@@ -368,71 +433,6 @@ def _keep_other_rows(gpkg: Path, layer: str, new, key: tuple, columns: tuple):
     if old.empty:
         return new
     return gpd.GeoDataFrame(pd.concat([old.to_crs(new.crs), new], ignore_index=True), crs=new.crs)
-
-
-def _forward_table(origin, end_label, time) -> pd.DataFrame:
-    frame = pd.DataFrame({"recharge_area": origin, "destination": end_label, "days": time})
-    rows = []
-    for area, g in frame.groupby("recharge_area", sort=True):
-        for dest, gd in g.groupby("destination", sort=True):
-            d = gd["days"].to_numpy()
-            rows.append({"recharge_area": area, "destination": dest, "particles": len(d),
-                         "share": len(d) / len(g), "median_days": float(np.median(d)),
-                         "p10_days": float(np.percentile(d, 10)), "p90_days": float(np.percentile(d, 90)),
-                         "median_years": float(np.median(d)) / 365.25})
-    return pd.DataFrame(rows)
-
-
-def _contributing_areas(store: Store, unit: str, field, grid, head, springs, sink_xy, radius, t_max,
-                        max_particles: int = 20_000):
-    """Contributing area of each spring: the cells whose forward path ends at it.
-
-    A lattice of particles over every cell of the head surface (thinned to about
-    ``max_particles``) is tracked forward; the cells whose particle reaches a
-    spring are polygonised into that spring's contributing area. Backward paths
-    from a ring around a spring sample a converging catchment poorly (most of
-    the ring maps to a few flow tubes), so the delineation is done this way.
-    Returns the polygon layer and, per spring and recharge area, the share of the
-    area's cells that drain to the spring with their travel times.
-    """
-    import geopandas as gpd
-    import shapely
-    from rasterio.features import shapes
-    from rasterio.transform import from_origin
-
-    from .. import flow
-
-    valid = np.isfinite(head)
-    stride = max(1, int(np.ceil(np.sqrt(valid.sum() / max_particles))))
-    rows, cols = np.nonzero(valid[::stride, ::stride])
-    xs = grid.x_centers()[::stride][cols]
-    ys = grid.y_centers()[::stride][rows]
-    res = flow.track(np.column_stack([xs, ys]), field, t_max=t_max, sinks=sink_xy, sink_radius=radius,
-                     max_step=0.5 * grid.cell)
-    shape = valid[::stride, ::stride].shape
-    transform = from_origin(grid.x0, grid.y0, grid.cell * stride, grid.cell * stride)
-    rech = _unit_recharge(store, unit)
-    polys, rows_out = [], []
-    for j, sid in enumerate(springs["spring_id"]):
-        reach = res.end_sink == j
-        raster = np.zeros(shape, dtype=np.uint8)
-        raster[rows[reach], cols[reach]] = 1
-        parts = [shapely.geometry.shape(g) for g, v in shapes(raster, mask=raster == 1, transform=transform) if v == 1]
-        geom = shapely.union_all(parts) if parts else shapely.Polygon()
-        t = res.time[reach]
-        polys.append({"spring_id": sid, "unit": unit, "cells": int(reach.sum()), "area": float(geom.area),
-                      "median_days": float(np.median(t)) if len(t) else None, "geometry": geom})
-        for aid, poly in zip(rech["area_id"], rech.geometry):
-            inside = shapely.contains_xy(poly, xs, ys)
-            hit = inside & reach
-            tt = res.time[hit]
-            rows_out.append({"spring_id": sid, "recharge_area": aid, "area_cells": int(inside.sum()),
-                             "share": float(hit.sum() / inside.sum()) if inside.any() else None,
-                             "median_days": float(np.median(tt)) if len(tt) else None,
-                             "p10_days": float(np.percentile(tt, 10)) if len(tt) else None,
-                             "p90_days": float(np.percentile(tt, 90)) if len(tt) else None})
-    ca = gpd.GeoDataFrame(polys, geometry="geometry", crs=store.settings.crs)
-    return ca, pd.DataFrame(rows_out)
 
 
 # -- pumping scenarios (SPEC 2.9) --------------------------------------------------
@@ -465,7 +465,8 @@ def _instants(values) -> pd.Series:
 def head_window(store: Store, unit: str, folder) -> dict:
     """The time window of the heads behind a unit's head surface (read from its sidecar).
 
-    A surface made with ``--window`` has that window; one made with ``--at`` has
+    ``folder`` is the head surface product (:class:`hydroatlas.products.Product`) or a folder holding
+    ``<unit>_head.json``. A surface made with ``--window`` has that window; one made with ``--at`` has
     that instant; one made from all readings has the span of the unit's readings.
     Returns ``start`` and ``end`` (timestamps), ``text`` and ``source``.
     """
@@ -473,7 +474,7 @@ def head_window(store: Store, unit: str, folder) -> dict:
 
     from ..heads import TimeWindow, parse_instant
 
-    side = unit_path(folder, unit, "head.json")
+    side = folder.file("head.json") if hasattr(folder, "files") else unit_path(folder, unit, "head.json")
     info = {}
     if side.is_file():
         try:
@@ -489,7 +490,7 @@ def head_window(store: Store, unit: str, folder) -> dict:
         return {"start": t, "end": t, "text": info["at"], "source": f"date of the head surface ({side.name}, --at)"}
     heads = store.read("heads", ["well_id", "zone_id", "measured_at"])
     asg = zone_assignment(store)
-    members = _unit_members(store.read("units"), unit)
+    members = unit_members(store.read("units"), unit)
     mine = heads.merge(asg[asg["unit"].isin(members)][["well_id", "zone_id"]], on=["well_id", "zone_id"])
     if mine.empty:
         mine = heads
@@ -510,7 +511,7 @@ def window_record(window: dict) -> dict:
 def _in_unit(store: Store, rec: pd.DataFrame, unit: str) -> list[bool]:
     """Which pumping records draw on ``unit``: a zone assigned to it, or a whole-well record of a well open to it."""
     asg = zone_assignment(store)
-    members = _unit_members(store.read("units"), unit)
+    members = unit_members(store.read("units"), unit)
     zone_unit = {(w, z): u for w, z, u in asg[["well_id", "zone_id", "unit"]].itertuples(index=False)}
     well_units = asg.groupby("well_id")["unit"].agg(set).to_dict()
     return [((zone_unit.get((w, z)) in members) if z else bool(well_units.get(w, set()) & members))
@@ -559,7 +560,7 @@ def _unit_picks(store: Store, unit: str) -> pd.DataFrame:
     from .. import pumping
 
     units = store.read("units")
-    members = _unit_members(units, unit)
+    members = unit_members(units, unit)
     picks = store.read("picks")
     mine = picks[picks["unit"].isin(members)]
     cols = ["well_id", "x", "y", "ground_elev", "top_depth", "bottom_depth", "total_depth", "full"]
@@ -574,7 +575,7 @@ def _unit_picks(store: Store, unit: str) -> pd.DataFrame:
     per["full"] = pumping.full_penetrations(per["bottom_depth"].to_numpy(float),
                                             per["total_depth"].to_numpy(float),
                                             per["well_id"].isin(set(below["well_id"])).to_numpy(),
-                                            tolerance=TOTAL_DEPTH_TOLERANCE_M / _length_to_m(store))
+                                            tolerance=TOTAL_DEPTH_TOLERANCE_M / metres_per_length_unit(store.settings))
     return per[cols]
 
 
@@ -595,7 +596,7 @@ def unit_thickness_at(store: Store, unit: str, xy) -> tuple[np.ndarray | None, d
 
     per = _unit_picks(store, unit)
     full = per[per["full"].astype(bool)] if not per.empty else per
-    len_m = _length_to_m(store)
+    len_m = metres_per_length_unit(store.settings)
     L = store.settings.length_unit
     info = {"rule": "wells whose picks hold the unit's top and bottom (bottom not at the well's total depth, and "
                     "a pick of a lower unit or a total depth below the pick)",
@@ -646,35 +647,36 @@ def unit_levels_at(store: Store, unit: str, xy) -> tuple[np.ndarray, np.ndarray]
     return top, bottom
 
 
-def drawdown_layers(folder, unit: str) -> list[tuple[str, str]]:
-    """The drawdown rasters of a unit in a folder, for the map: (label, quantity), newest first.
+def drawdown_layers(store: Store, unit: str, *, scenarios=None, folder=None) -> list[tuple[str, object]]:
+    """The drawdown scenarios of a unit recorded in the store, for the map: (label, product), newest first.
 
-    ``quantity`` is the tail that :func:`read_surface` takes: ``drawdown`` for the unnamed scenario,
-    ``drawdown_<name>`` for one made with ``drawdown --name``.
+    ``scenarios``: the scenarios to show, by scenario name (``drawdown --name``) or product name; None shows
+    every scenario of the unit recorded in the store (with ``folder``, those whose files lie there). A name
+    that matches no scenario of the unit is a ParameterError.
     """
-    import json
+    from .. import products
 
-    from ..export.names import file_stem
-
-    folder = Path(folder)
-    found = []
-    if unit_path(folder, unit, "drawdown.tif").is_file():
-        found.append((unit_path(folder, unit, "drawdown.tif").stat().st_mtime, "Drawdown of the last scenario",
-                      "drawdown"))
-    for side in folder.glob(f"{file_stem(unit)}_drawdown_*.json"):
-        try:
-            info = json.loads(side.read_text(encoding="utf-8"))
-            name = info.get("scenario")
-            if info.get("unit") != unit or not isinstance(name, str):
-                continue
-            tail = f"drawdown_{scenario_stem(name)}"
-        except (OSError, ValueError, HydroatlasError):
-            continue
-        tif = unit_path(folder, unit, f"{tail}.tif")
-        if side == unit_path(folder, unit, f"{tail}.json") and tif.is_file():
-            what = "total drawdown" if info.get("mode") == "from unpumped" else "drawdown change"
-            found.append((tif.stat().st_mtime, f"Scenario {name}: {what}", tail))
-    return [(label, tail) for _, label, tail in sorted(found, reverse=True)]
+    recorded = products.list_products(store, kind="drawdown", unit=unit)
+    if folder is not None:
+        root = Path(folder).resolve()
+        recorded = [p for p in recorded if all(Path(f).resolve().is_relative_to(root) for f in p.files)]
+    if scenarios is not None:
+        wanted = [scenarios] if isinstance(scenarios, str) else list(scenarios)
+        chosen = []
+        for name in wanted:
+            hits = [p for p in recorded if p.parameters.get("scenario") == name or p.name == name]
+            if not hits:
+                known = [p.parameters.get("scenario") or p.name for p in recorded]
+                raise ParameterError(f"no drawdown scenario {name!r} of unit {unit} is recorded in the store "
+                                     f"{store.location}; recorded: {', '.join(known) or 'none'}", param="scenarios")
+            chosen.append(hits[-1])
+        recorded = chosen
+    out = []
+    for prod in sorted(recorded, key=lambda p: p.created_utc, reverse=True):
+        what = "total drawdown" if prod.parameters.get("mode") == "from unpumped" else "drawdown change"
+        name = prod.parameters.get("scenario")
+        out.append((f"Scenario {name}: {what}" if name else f"Scenario {prod.name} (unnamed): {what}", prod))
+    return out
 
 
 def _store_rate_unit(store: Store) -> str:
@@ -719,8 +721,15 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
                       new_wells: list | None = None, rate_unit: str = "m3/d", transmissivity: float | None = None,
                       surfaces=None, out=".", threshold: float = 0.5, well_radius_m: float = 0.1,
                       name: str | None = None, from_unpumped: bool = False,
-                      policy: SelectionPolicy | None = None) -> dict:
+                      policy: SelectionPolicy | None = None, surface: str | None = None,
+                      allow_stale: bool = False) -> dict:
     """Theis drawdown of a pumping scenario over a unit's head surface, against the baseline in the heads.
+
+    The head surface comes from the store's product registry: the one named ``surface``, else the latest head
+    surface of the unit (with ``surfaces``, a folder: the latest whose files lie there); one made from store
+    rows that changed since is refused unless ``allow_stale``. The scenario is recorded in the registry (kind
+    ``drawdown``, its name ``<unit>_drawdown_<name>``, or ``<unit>_drawdown`` without a name) and its
+    sidecar names the head surface product it used (``baseline.head_surface_product``).
 
     The K tests behind the default T follow the selection policy (None: the default); the sidecar's
     ``selection`` says which, ``head_surface_selection`` repeats that of the head surface used.
@@ -766,28 +775,35 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
     from ..quantities import RATE_UNITS, normalize_unit
 
     if not (isinstance(days, (int, float)) and days > 0):
-        raise ParameterError(f"--days must be > 0; got {days}")
+        raise ParameterError(f"days= must be > 0; got {days}", param="days")
     if not (isinstance(storativity, (int, float)) and storativity > 0):
         raise ParameterError(f"storativity S must be > 0; got {storativity}")
     if transmissivity is not None and not transmissivity > 0:
         raise ParameterError(f"transmissivity T must be > 0; got {transmissivity}")
     stem = None if name is None else scenario_stem(name)
-    crs_to_m = _crs_to_m(store)
-    len_m = _length_to_m(store)
+    from .. import products
+
+    # the registry: the store must take the record, and the digests come before any row is read
+    digests = products.input_digests(store, "drawdown")
+    products.ensure_writable(store)
+    store = Study.of(store, policy)  # the tables are read once for the whole job
+    crs_to_m = metres_per_crs_unit(store.settings)
+    len_m = metres_per_length_unit(store.settings)
     L = store.settings.length_unit
     q_factor = RATE_UNITS[normalize_unit(rate_unit, "rate")]
     out = Path(out)
-    folder = Path(surfaces) if surfaces is not None else out
-    grid, head = read_surface(folder, unit, "head", store.location)
-    window = head_window(store, unit, folder)
+    head_prod, stale = products.use_product(store, kind="surface", unit=unit, quantity="head", name=surface,
+                                            folder=surfaces, allow_stale=allow_stale)
+    grid, head = read_grid(head_prod.file("head.tif"))
+    window = head_window(store, unit, head_prod)
     records, base = baseline_pumping(store, unit, window)
     wells = store.read("wells", ["well_id", "x", "y"]).set_index("well_id")
     base_q = dict(zip(base["well_id"], base["rate_m3d"].astype(float)))
     scen_q = dict(base_q)
     for wid, q in (rates or {}).items():
         if wid not in wells.index:
-            raise ParameterError(f"--rate names well {wid!r}, which is not in the store (use --new-well X,Y,Q "
-                                 "for a proposed well)")
+            raise ParameterError(f"rates= names well {wid!r}, which is not in the store (use new_wells= "
+                                 "for a proposed well)", param=("rates", "new_wells"))
         scen_q[wid] = float(q) * q_factor
     rows = []
     for wid, q in scen_q.items():
@@ -797,12 +813,13 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
         rows.append((wid, float(wells.loc[wid, "x"]), float(wells.loc[wid, "y"]), b, q, status, "stored"))
     for label, x, y, q in (new_wells or []):
         if label in wells.index or label in scen_q:
-            raise ParameterError(f"--new-well {label!r} has the id of a stored well; give its rate with "
-                                 f"--rate {label}=Q, or another name")
+            raise ParameterError(f"new_wells= {label!r} has the id of a stored well; give its rate with "
+                                 f"rates={label}=Q, or another name", param=("new_wells", "rates"))
         rows.append((label, float(x), float(y), 0.0, float(q) * q_factor, "proposed", "proposed"))
     if not rows:
         raise ParameterError(f"no pumping well of unit {unit} in the baseline (no pumping record active in the "
-                             f"head window {window['text']}) and no --rate or --new-well: nothing to compute")
+                             f"head window {window['text']}) and no rates= or new_wells=: nothing to compute",
+                             param=("rates", "new_wells"))
     pw = pd.DataFrame(rows, columns=["well_id", "x", "y", "baseline_rate_m3d", "scenario_rate_m3d", "status",
                                      "origin"])
     pw["change_m3d"] = pw["scenario_rate_m3d"] - pw["baseline_rate_m3d"]
@@ -816,20 +833,21 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
     later = sorted(set(later.loc[later["start"] > window["end"], "well_id"]) - set(scen_q))
     if later:
         warnings.append(f"well(s) {', '.join(later)} started pumping after the head window {window['text']}; "
-                        "they are not in the baseline and not in this scenario unless given with --rate")
+                        "they are not in the baseline and not in this scenario unless given a scenario rate")
     wxy = pw[["x", "y"]].to_numpy(float)
     if transmissivity is None:
         rows, k_selection = unit_stats_selected(store, k_unit="m/d", policy=policy)
         row = next(r for r in rows if r["unit"] == unit)
         if row["k_geomean"] is None:
-            raise InsufficientDataError(f"unit {unit} has no K tests; give --transmissivity")
+            raise InsufficientDataError(f"unit {unit} has no K tests; give transmissivity=",
+                                        param="transmissivity")
         b_m, b_info, b_warn = unit_thickness_at(store, unit, wxy)
         if b_m is None:
             raise InsufficientDataError(
                 f"no well penetrates unit {unit} fully (picks of its top and bottom, the bottom not at the "
                 f"well's total depth, with a lower unit picked or the well drilled on below it), so its "
                 "thickness for T = K b is "
-                "unknown; give --transmissivity")
+                "unknown; give transmissivity=", param="transmissivity")
         warnings += b_warn
         t_well = row["k_geomean"] * b_m
         t_info = {"source": "unit geometric-mean K x thickness at each well from full penetrations",
@@ -853,32 +871,14 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
             rec_xy = records[["x", "y"]].to_numpy(float)[idx] * crs_to_m
             rec_t = np.array([t_of[w] for w in records["well_id"].to_numpy()[idx]])
             adj_terms = (rec_xy, q_terms, t_terms, rec_t)
+    scenario_q = (pw["scenario_rate_m3d"] if from_unpumped else pw["change_m3d"]).to_numpy(float)
 
-    def superpose(points_m=None):
-        """Scenario drawdown and unpumped adjustment (m) on the grid, or at points (m coordinates)."""
-        q = (pw["scenario_rate_m3d"] if from_unpumped else pw["change_m3d"]).to_numpy(float)
-        on = q != 0
-        terms = [(wxy[on] * crs_to_m, q[on], float(days), t_well[on], 1.0)]
-        if adj_terms is not None:
-            terms.append(adj_terms + (-1.0,))
-        shape = (len(yc), len(xc)) if points_m is None else (len(points_m),)
-        s, adj = np.zeros(shape), np.zeros(shape)
-        for (txy, tq, tt, tT, sign) in terms:
-            if len(tq) == 0:
-                continue
-            if points_m is None:
-                v = pumping.superpose_drawdown_grid(xc, yc, txy, tq, tt, T=tT, S=float(storativity),
-                                                    r_min=well_radius_m)
-            else:
-                v = pumping.superpose_drawdown(points_m, txy, tq, tt, T=tT, S=float(storativity),
-                                               r_min=well_radius_m)
-            if sign > 0:
-                s += v
-            else:
-                adj += v
-        return s, adj
+    def superpose(**where):
+        """Scenario drawdown and unpumped adjustment (m) on the grid (grid=) or at points (points=, m)."""
+        return pumping.scenario_drawdown(wxy * crs_to_m, scenario_q, float(days), T=t_well, S=float(storativity),
+                                         r_min=well_radius_m, history=adj_terms, **where)
 
-    s_m, adj_m = superpose()
+    s_m, adj_m = superpose(grid=(xc, yc))
     s_len = np.where(valid, s_m / len_m, np.nan)
     start_head = np.where(valid, head + adj_m / len_m, np.nan)  # the measured surface, or unpumped
     after = start_head - s_len
@@ -888,21 +888,23 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
     if len(rr):
         t_v, b_v = unit_levels_at(store, unit, np.column_stack([grid.x_centers()[cc], grid.y_centers()[rr]]))
         top_g[rr, cc], bot_g[rr, cc] = t_v, b_v
-    with np.errstate(invalid="ignore"):
-        cells = {"below_unit_top": int(np.sum(after < top_g)),
-                 "taken_below_unit_top": int(np.sum((after < top_g) & (start_head >= top_g))),
-                 "below_unit_bottom": int(np.sum(after < bot_g)), "valid": int(valid.sum())}
+    crossed = pumping.level_crossings(start_head, after, top_g, bot_g)
+    cells = {"below_unit_top": int(crossed["below_top"].sum()),
+             "taken_below_unit_top": int(crossed["taken_below_top"].sum()),
+             "below_unit_bottom": int(crossed["below_bottom"].sum()), "valid": int(valid.sum())}
     out = ensure_folder(out)
     tail = "drawdown" if stem is None else f"drawdown_{stem}"
     what = ("total drawdown of all pumping, from unpumped heads" if from_unpumped
             else "drawdown change against the baseline in the measured heads (negative: recovery)")
     dd_tif = write_geotiff(unit_path(out, unit, f"{tail}.tif"), grid, [s_len], crs=store.settings.crs,
-                           descriptions=[f"{what} ({L})"], tags={"caution": CAUTION})
+                           descriptions=[f"{what} ({L})"], units=L,
+                           tags={"caution": caution_text("drawdown"), "quantity": "drawdown", "unit": unit})
     hd_tif = write_geotiff(unit_path(out, unit, "head_drawdown.tif" if stem is None else f"head_{stem}.tif"), grid,
                            [after], crs=store.settings.crs,
-                           descriptions=[f"head after {days:g} d of the scenario ({L})"], tags={"caution": CAUTION})
+                           descriptions=[f"head after {days:g} d of the scenario ({L})"], units=L,
+                           tags={"caution": caution_text("drawdown"), "quantity": "head after drawdown", "unit": unit})
     # springs and monitoring zones of the unit: exact drawdown at their locations
-    members = _unit_members(store.read("units"), unit)
+    members = unit_members(store.read("units"), unit)
     springs = store.read("springs", ["spring_id", "x", "y", "unit"])
     springs = springs[springs["unit"].isna() | springs["unit"].isin(members)]
     asg = zone_assignment(store)
@@ -913,21 +915,27 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
         pd.DataFrame({"kind": "monitoring zone", "id": zones["well_id"], "zone_id": zones["zone_id"],
                       "x": zones["x"], "y": zones["y"]})], ignore_index=True)
     pxy = points[["x", "y"]].to_numpy(float).reshape(-1, 2)
-    s_pt, adj_pt = superpose(pxy * crs_to_m) if len(points) else (np.zeros(0), np.zeros(0))
+    s_pt, adj_pt = superpose(points=pxy * crs_to_m) if len(points) else (np.zeros(0), np.zeros(0))
     points["drawdown"] = s_pt / len_m
     points["head_before"] = flow.values_at(grid.x0, grid.y0, grid.cell, head, pxy) + adj_pt / len_m
     points["head_after"] = points["head_before"] - points["drawdown"]
     top_pt, bot_pt = unit_levels_at(store, unit, pxy)
     points["unit_top_elev"], points["unit_bottom_elev"] = top_pt, bot_pt
     after_pt = points["head_after"].to_numpy(float)
-    with np.errstate(invalid="ignore"):
-        points["below_unit_top"] = [bool(a < t) if np.isfinite(t) else None for a, t in zip(after_pt, top_pt)]
-        points["below_unit_bottom"] = [bool(a < b) if np.isfinite(b) else None for a, b in zip(after_pt, bot_pt)]
-        taken = ((after_pt < top_pt) & (points["head_before"].to_numpy(float) >= top_pt)) | (after_pt < bot_pt)
+    crossed = pumping.level_crossings(points["head_before"].to_numpy(float), after_pt, top_pt, bot_pt)
+    points["below_unit_top"] = [bool(c) if np.isfinite(t) else None for c, t in zip(crossed["below_top"], top_pt)]
+    points["below_unit_bottom"] = [bool(c) if np.isfinite(b) else None
+                                   for c, b in zip(crossed["below_bottom"], bot_pt)]
+    taken = crossed["taken_below_top"] | crossed["below_bottom"]
     impacts = points[(points["drawdown"] > threshold) | taken].sort_values("drawdown", ascending=False)
     impacts = impacts.assign(length_unit=L)
     impacts_csv = write_csv(unit_path(out, unit, "drawdown_impacts.csv" if stem is None
                                       else f"drawdown_{stem}_impacts.csv"), impacts)
+    # springs with a discharge-head relation ('springflow'): the discharge change the drawdown at the index implies
+    from .springflow import scenario_spring_effects
+
+    spring_fx = scenario_spring_effects(store, springs["spring_id"], [out, surfaces],
+                                        lambda xy: superpose(points=np.asarray(xy, float) * crs_to_m)[0] / len_m)
     if cells["taken_below_unit_top"]:
         warnings.append(f"the scenario takes the head below the top of unit {unit} in {cells['taken_below_unit_top']} "
                         "cells (confined to unconfined: Theis with a confined S then understates drawdown)")
@@ -955,7 +963,7 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
     side = {"unit": unit, "scenario": name, "mode": mode, "days": days, "storativity": storativity,
             "baseline": {
                 "head_window": window_record(window),
-                "head_surface": str(unit_path(folder, unit, "head.tif")),
+                "head_surface": str(head_prod.file("head.tif")), "head_surface_product": head_prod.name,
                 "wells": base_rows,
                 "meaning": "measured heads already hold the cones of these wells (pumping records active during "
                            "the head window; rate at the window's end)"},
@@ -977,17 +985,39 @@ def drawdown_scenario(store: Store, unit: str, *, days: float, storativity: floa
             "method": "Theis (1935) superposition, no image wells (no boundaries)",
             "max_drawdown": float(np.nanmax(s_len)) if np.isfinite(s_len).any() else None,
             "min_drawdown": float(np.nanmin(s_len)) if np.isfinite(s_len).any() else None,
-            "caution": CAUTION + " Theis assumes a uniform, infinite, confined aquifer; boundaries, leakage and "
-                       "karst conduits change real drawdown.",
+            "caution": caution_text("drawdown"),
             "files": {"drawdown": str(dd_tif), "head": str(hd_tif), "impacts": str(impacts_csv)}}
     # the K tests behind T (none when T was given); the head surface's own selection is in its sidecar
     side["selection"] = k_selection if transmissivity is None else selection_record(policy, [])
-    side["head_surface_selection"] = sidecar_selection(unit_path(folder, unit, "head.json"))
+    side["head_surface_selection"] = sidecar_selection(head_prod.file("head.json"))
+    side["input_products"] = [head_prod.name]
+    side["stale_inputs_used"] = stale
     side["in_store_units"] = _drawdown_in_store_units(L, side)
     if from_unpumped:
         side["adjustment_to_unpumped"] = {
             "max": float(np.nanmax(np.where(valid, adj_m / len_m, np.nan))) if valid.any() else None,
             "length_unit": L, "evaluated_at": window["end"].isoformat()}
+    side["spring_effects"] = spring_fx.to_dict(orient="records")
+    if len(spring_fx):
+        side["files"]["spring_effects"] = str(write_csv(unit_path(out, unit, f"{tail}_spring_effects.csv"),
+                                                        spring_fx))
+    side["product"] = products.product_name(store, f"{unit}_{tail}", dd_tif)
     side["files"]["sidecar"] = str(write_sidecar(unit_path(out, unit, f"{tail}.json"), side))
+    ru = normalize_unit(rate_unit, "rate")  # each rate with its unit in the command
+    rate_args = [("--rate", f"{w}={q:.10g}{ru}") for w, q in (rates or {}).items()]
+    well_args = [("--new-well", f"{lbl},{x:.10g},{y:.10g},{q:.10g}{ru}") for lbl, x, y, q in (new_wells or [])]
+    command = products.command_line(
+        "drawdown", store, ("--unit", unit), ("--days", days), ("-S", storativity), *rate_args, *well_args,
+        ("-T", None if transmissivity is None else f"{transmissivity:.10g}m2/d"), ("--threshold", threshold),
+        ("--name", name), ("--from-unpumped", bool(from_unpumped)), ("--surface", surface),
+        *products.policy_args(policy), ("--out", str(out)))
+    products.record_product(store, kind="drawdown", name=side["product"], unit=unit, quantity="drawdown",
+                            value_unit=L,
+                            files=[side["files"][k] for k in ("drawdown", "head", "impacts", "sidecar")],
+                            parameters={"scenario": name, "mode": mode, "days": days, "storativity": storativity,
+                                        "transmissivity_m2_per_d": side["transmissivity_m2_per_d"],
+                                        "changes": changes, "threshold": threshold},
+                            head_window=side["baseline"]["head_window"], selection=side["selection"],
+                            inputs=[head_prod.name], command=command, digests=digests)
     side["impacts"] = impacts
     return side
