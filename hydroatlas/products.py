@@ -25,9 +25,11 @@ table's change state, which SQLite and the store's history triggers keep up to d
 
 So any change of a row changes the digest, and a re-import of an unchanged file (which writes nothing) does not.
 A change undone by a later one still counts as a change (the product is reported stale; remaking it is cheap
-next to using a wrong one). The queries take milliseconds whatever the table size: ``count(*)`` and
-``max(fid)`` of the table, and ``max(fid)`` of its history entries through the index ``record_history_by_table``
-(made by ``upgrade`` and by the first product recorded).
+next to using a wrong one). The store gives this state (``change_marker`` of the backend); the queries take
+milliseconds whatever the table size: in a GeoPackage ``count(*)`` and ``max(fid)`` of the table (SQLite counts
+from the b-tree), and ``max(fid)`` of its history entries through the index ``record_history_by_table`` (made by
+``upgrade`` and by the first product recorded). The same text on both backends: a product recorded in a
+GeoPackage stays fresh in its PostGIS copy (``hydroatlas copy``). On PostgreSQL ``count(*)`` reads the whole table.
 """
 
 from __future__ import annotations
@@ -71,7 +73,6 @@ INPUT_TABLES: dict[str, tuple[str, ...]] = {
     "figures": _HEAD_SURFACE + ("ktests", "slug_records", "slug_geometry"),
 }
 
-_HISTORY = "record_history"
 _JSON_COLUMNS = ("parameters", "head_window", "selection", "files", "input_digests", "inputs")
 
 
@@ -115,7 +116,7 @@ def table_digests(store, tables) -> dict[str, str]:
 
     Parameters
     ----------
-    store : GeoPackageStore
+    store : Store (GeoPackage or PostGIS), or a Study on one
     tables : iterable of str
         Table names of :mod:`hydroatlas.store.schema`.
 
@@ -126,14 +127,13 @@ def table_digests(store, tables) -> dict[str, str]:
     """
     from .store.schema import TABLES
 
-    conn = _conn(store)
+    _conn(store)  # a closed store: the registry's one message
+    base = _base(store)
     out = {}
     for table in dict.fromkeys(tables):
         if table not in TABLES:
             raise ParameterError(f"unknown table {table!r}; expected one of {sorted(TABLES)}", param="tables")
-        rows, last = conn.execute(f"SELECT count(*), max(fid) FROM {_q(table)}").fetchone()
-        changed = conn.execute(f"SELECT max(fid) FROM {_q(_HISTORY)} WHERE table_name = ?", (table,)).fetchone()[0]
-        text = f"{table}|rows={rows}|last_fid={last or 0}|last_history_fid={changed or 0}"
+        text = base.change_marker(table)  # the backend's cheap, exact change state (see the module docstring)
         out[table] = hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
     return out
 

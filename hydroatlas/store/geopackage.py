@@ -15,7 +15,6 @@ import os
 import sqlite3
 import struct
 from contextlib import contextmanager
-from datetime import datetime, timezone
 from pathlib import Path
 from typing import Callable, Iterator
 
@@ -26,8 +25,9 @@ from pyproj import CRS
 
 from ..errors import NotAStoreError, ParameterError, StoreError
 from . import gpkg_sql
-from .base import Store, StoreSettings, WriteResult
-from .schema import HISTORY_TABLE, SCHEMA_VERSION, TABLES, Table
+from .base import StoreSettings, WriteResult
+from .common import SQLStore, now_text as _now, q, settings_rows, version_columns
+from .schema import HISTORY_TABLE, TABLES, Table
 
 GPKG_APPLICATION_ID = 0x47504B47  # "GPKG"
 GPKG_USER_VERSION = 10400          # GeoPackage 1.4
@@ -36,15 +36,6 @@ CUSTOM_SRS_ID = 100000
 CHUNK_ROWS = 50_000
 
 _ENVELOPE_BYTES = {0: 0, 1: 32, 2: 48, 3: 48, 4: 64}
-
-
-def q(name: str) -> str:
-    """Quote an SQL identifier (some columns, like ``end``, are keywords)."""
-    return '"' + name.replace('"', '""') + '"'
-
-
-def _now() -> str:
-    return datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
 
 
 def encode_geometries(geoms, srs_id: int) -> list[bytes | None]:
@@ -129,9 +120,7 @@ def history_triggers(spec: Table) -> list[str]:
     """
     if not spec.provenance or not spec.key:
         return []
-    cols = list(spec.column_names) + list(spec.lifecycle)
-    if spec.geometry:
-        cols.append("geom")
+    cols = version_columns(spec, geometry=True)
     old = ", ".join(f"'{c}', " + (f"hex(OLD.{q(c)})" if c == "geom" else f"OLD.{q(c)}") for c in cols)
     key = ", ".join(f"OLD.{q(c)}" for c in spec.key)
     differs = " OR ".join(f"OLD.{q(c)} IS NOT NEW.{q(c)}" for c in cols)
@@ -181,7 +170,7 @@ def _srs_row(crs: CRS) -> tuple:
     return (crs.name, CUSTOM_SRS_ID, "NONE", CUSTOM_SRS_ID, wkt, crs.name)
 
 
-class GeoPackageStore(Store):
+class GeoPackageStore(SQLStore):
     """A store in one GeoPackage file; open with :func:`hydroatlas.open_store`."""
 
     def __init__(self, path: str | os.PathLike, conn: sqlite3.Connection, settings: StoreSettings,
@@ -223,13 +212,7 @@ class GeoPackageStore(Store):
             conn.executemany("INSERT INTO gpkg_spatial_ref_sys VALUES (?,?,?,?,?,?)", srs)
             srs_id = row[1]
             conn.execute(f"CREATE TABLE {SETTINGS_TABLE} (key TEXT PRIMARY KEY, value TEXT NOT NULL)")
-            conn.executemany(f"INSERT INTO {SETTINGS_TABLE} VALUES (?, ?)", [
-                ("schema_version", SCHEMA_VERSION),
-                ("crs", settings.crs.to_wkt()),
-                ("length_unit", settings.length_unit),
-                ("vertical_datum", settings.vertical_datum),
-                ("created_at", _now()),
-            ])
+            conn.executemany(f"INSERT INTO {SETTINGS_TABLE} VALUES (?, ?)", settings_rows(settings))
             for spec in TABLES.values():
                 for stmt in table_ddl(spec):
                     conn.execute(stmt)
@@ -295,53 +278,26 @@ class GeoPackageStore(Store):
         return read_version(self._conn)
 
     # -- reading --------------------------------------------------------------
-    def _spec(self, table: str) -> Table:
-        try:
-            return TABLES[table]
-        except KeyError:
-            raise ParameterError(f"unknown table {table!r}; expected one of {sorted(TABLES)}") from None
+    def _fetch(self, sql: str, params=()) -> list[tuple]:
+        return self._conn.execute(sql, params).fetchall()
 
-    def read(self, table: str, columns: list[str] | None = None, *, include_retired: bool = False) -> pd.DataFrame:
-        """Rows of ``table`` in import order; retired records (and rows of retired wells, zones or springs)
-        are left out unless ``include_retired``."""
-        spec = self._spec(table)
-        cols = list(columns) if columns else list(spec.column_names)
-        bad = set(cols) - set(spec.column_names) - set(spec.lifecycle)
-        if bad:
-            raise ParameterError(f"table {table} has no column(s) {sorted(bad)}")
-        where = "" if include_retired else self._active_where(spec, "t")
-        sql = f"SELECT {', '.join('t.' + q(c) for c in cols)} FROM {q(table)} AS t{where} ORDER BY t.fid"
-        cur = self._conn.execute(sql)
-        frame = pd.DataFrame.from_records(cur.fetchall(), columns=cols)
-        for c in spec.columns:
-            if c.name in frame and c.sql_type == "REAL":
-                frame[c.name] = pd.to_numeric(frame[c.name]).astype(float)
-        return frame
+    def _execute(self, sql: str, params=()) -> int:
+        return self._conn.execute(sql, params).rowcount
 
-    def _has_retired(self, spec: Table) -> bool:
-        """True when this table or a parent it cascades from holds a retired row."""
-        if spec.provenance and self._conn.execute(
-                f"SELECT 1 FROM {q(spec.name)} WHERE retired_at IS NOT NULL LIMIT 1").fetchone():
-            return True
-        return any(self._has_retired(TABLES[parent]) for _, parent, _ in spec.cascade_parents)
+    def _key_text_sql(self, spec: Table, alias: str) -> str:
+        return " || '/' || ".join(f"CAST({alias}.{q(c)} AS TEXT)" for c in spec.key)
 
-    def _active_where(self, spec: Table, alias: str) -> str:
-        conds = self._active_conditions(spec, alias)
-        return (" WHERE " + " AND ".join(conds)) if conds else ""
+    def _current_version(self, spec: Table, fid: int) -> tuple[dict, str]:
+        import json
 
-    def _active_conditions(self, spec: Table, alias: str) -> list[str]:
-        if not spec.provenance or not self._has_retired(spec):
-            return []
-        conds = [f"{alias}.retired_at IS NULL"]
-        for i, (local, parent, remote) in enumerate(spec.cascade_parents):
-            pspec = TABLES[parent]
-            if not self._has_retired(pspec):
-                continue
-            pa = f"{alias}_{i}"
-            join = " AND ".join(f"{pa}.{q(r)} = {alias}.{q(lc)}" for lc, r in zip(local, remote))
-            inner = " AND ".join([join] + self._active_conditions(pspec, pa))
-            conds.append(f"EXISTS (SELECT 1 FROM {q(parent)} AS {pa} WHERE {inner})")
-        return conds
+        cols = version_columns(spec)
+        current = dict(zip(cols, self._conn.execute(
+            f"SELECT {', '.join(map(q, cols))} FROM {q(spec.name)} WHERE fid = ?", (fid,)).fetchone()))
+        # the text SQLite's json_array() gives the history triggers' record_key
+        return current, json.dumps([current[c] for c in spec.key], ensure_ascii=False, separators=(",", ":"))
+
+    def _touched(self, table: str) -> None:
+        self._conn.execute("UPDATE gpkg_contents SET last_change=? WHERE table_name=?", (_now(), table))
 
     def read_geometries(self, table: str):
         import geopandas as gpd
@@ -354,10 +310,6 @@ class GeoPackageStore(Store):
         blobs = [r[0] for r in self._conn.execute(f"SELECT t.geom FROM {q(table)} AS t{where} ORDER BY t.fid")]
         geoms = decode_geometries(blobs) if blobs else []
         return gpd.GeoDataFrame(frame, geometry=list(geoms), crs=self.settings.crs)
-
-    def count(self, table: str) -> int:
-        self._spec(table)
-        return self._conn.execute(f"SELECT count(*) FROM {q(table)}").fetchone()[0]
 
     def snapshot(self) -> dict[str, list[tuple]]:
         """Every row of every table, for tests that prove nothing changed."""
@@ -465,91 +417,6 @@ class GeoPackageStore(Store):
         self._conn.execute(
             "UPDATE gpkg_contents SET min_x=?, min_y=?, max_x=?, max_y=?, last_change=? WHERE table_name=?",
             (minx, miny, maxx, maxy, _now(), table))
-
-    # -- record lifecycle ---------------------------------------------------
-    def _key_sql(self, spec: Table) -> str:
-        return " || '/' || ".join(f"CAST({q(c)} AS TEXT)" for c in spec.key)
-
-    def find_records(self, table: str, ids: list[str]) -> dict[str, int]:
-        """fid of each record named by ``ids`` (its natural-key values joined by '/').
-
-        Raises ParameterError naming the ids that match no record.
-        """
-        spec = self._spec(table)
-        if not spec.key or not spec.provenance:
-            raise ParameterError(f"records of {table} have no key to name them by")
-        found, missing = {}, []
-        for ident in ids:
-            rows = self._conn.execute(f"SELECT fid FROM {q(table)} WHERE {self._key_sql(spec)} = ?",
-                                      (ident,)).fetchall()
-            if rows:
-                found[ident] = rows[0][0]
-            else:
-                missing.append(ident)
-        if missing:
-            raise ParameterError(f"no {table} record {', '.join(map(repr, missing))}; name a record by its key "
-                                 f"({'/'.join(spec.key)})")
-        return found
-
-    def set_retired(self, table: str, ids: list[str], *, reason: str | None) -> int:
-        """Retire (``reason`` given) or restore (``reason`` None) records; returns how many changed."""
-        if not self._in_txn:
-            raise StoreError("set_retired must run inside store.transaction()")
-        spec = self._spec(table)
-        fids = self.find_records(table, ids)
-        changed = 0
-        for fid in fids.values():
-            if reason is None:
-                cur = self._conn.execute(f"UPDATE {q(table)} SET retired_at = NULL, retired_reason = NULL "
-                                         "WHERE fid = ? AND retired_at IS NOT NULL", (fid,))
-            else:
-                cur = self._conn.execute(f"UPDATE {q(table)} SET retired_at = ?, retired_reason = ? "
-                                         "WHERE fid = ? AND retired_at IS NULL", (_now(), reason, fid))
-            changed += cur.rowcount
-        self._conn.execute("UPDATE gpkg_contents SET last_change=? WHERE table_name=?", (_now(), spec.name))
-        return changed
-
-    def retired(self) -> pd.DataFrame:
-        """Every retired record: table, key, when and why."""
-        rows = []
-        for spec in TABLES.values():
-            if not spec.provenance or not spec.key:
-                continue
-            for key, at, reason in self._conn.execute(
-                    f"SELECT {self._key_sql(spec)}, retired_at, retired_reason FROM {q(spec.name)} "
-                    "WHERE retired_at IS NOT NULL ORDER BY fid"):
-                rows.append({"table": spec.name, "record": key, "retired_at": at, "reason": reason})
-        return pd.DataFrame(rows, columns=["table", "record", "retired_at", "reason"])
-
-    def record_versions(self, table: str, ident: str) -> list[dict]:
-        """Every version of one record, oldest first; the last is the current one."""
-        import json
-
-        spec = self._spec(table)
-        fid = self.find_records(table, [ident])[ident]
-        cols = list(spec.column_names) + list(spec.lifecycle)
-        current = dict(zip(cols, self._conn.execute(
-            f"SELECT {', '.join(map(q, cols))} FROM {q(table)} WHERE fid = ?", (fid,)).fetchone()))
-        key = json.dumps([current[c] for c in spec.key], ensure_ascii=False, separators=(",", ":"))
-        out = []
-        for action, at, old, new_file, reason in self._conn.execute(
-                f"SELECT action, changed_at, old_version, new_source_file, reason FROM {q(HISTORY_TABLE)} "
-                "WHERE table_name = ? AND record_key = ? ORDER BY fid", (table, key)):
-            version = json.loads(old)
-            version.pop("geom", None)
-            out.append({"version": len(out) + 1, "replaced_at": at, "replaced_by": action,
-                        "replaced_by_file": new_file, "reason": reason, **version})
-        out.append({"version": len(out) + 1, "replaced_at": None, "replaced_by": None, "replaced_by_file": None,
-                    "reason": None, **current})
-        return out
-
-    def log_import(self, kind: str, file: str, sha256: str, result: WriteResult) -> None:
-        if not self._in_txn:
-            raise StoreError("log_import must run inside store.transaction()")
-        self._conn.execute(
-            "INSERT INTO imports (kind, file, sha256, rows, inserted, updated, imported_at) VALUES (?,?,?,?,?,?,?)",
-            (kind, file, sha256, result.rows, result.inserted, result.updated, _now()))
-        self._conn.execute("UPDATE gpkg_contents SET last_change=? WHERE table_name=?", (_now(), "imports"))
 
     def close(self) -> None:
         if self._conn is not None:

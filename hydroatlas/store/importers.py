@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import contextvars
 import hashlib
+import itertools
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -24,9 +25,9 @@ from pyproj.exceptions import CRSError
 from ..errors import ImportDataError, ParameterError, UnitError
 from ..quantities import K_UNITS, RATE_UNITS, normalize_unit
 from . import schema
-from .base import Store
+from .base import Store, WriteResult
 from .columns import INPUTS
-from .tables import Cells, read_csv_table
+from .tables import CHUNK_ROWS, Cells, iter_csv_chunks, read_csv_table
 
 # The input columns of every kind are declared once (hydroatlas.store.columns, from the table declarations in
 # hydroatlas.store.schema); what follows is made from that declaration.
@@ -49,6 +50,8 @@ GEOGRAPHIC_INPUT = "EPSG:4326"
 #: a unit code: letters, digits, '-', '_' and '.', not starting with '.' (codes name output files)
 UNIT_CODE = re.compile(r"^[A-Za-z0-9_-][A-Za-z0-9._-]{0,63}$")
 MAX_RANK = int(INPUTS["units"].column("rank").maximum)
+#: kinds whose files are read, checked and written piece by piece (:func:`import_file`, ``chunk_rows``)
+STREAMED_KINDS = ("heads", "ktests", "discharge", "slugtests")
 
 
 @dataclass
@@ -58,6 +61,10 @@ class _Job:
     clear_empty: bool = False
     header: set = field(default_factory=set)
     notes: list = field(default_factory=list)
+    #: a streamed import: the keys of the rows of earlier pieces (by the names of the key columns) and the
+    #: store tables read once for the whole file; None when the file is checked whole
+    keys: dict | None = None
+    cache: dict | None = None
 
 
 _JOB: contextvars.ContextVar[_Job] = contextvars.ContextVar("hydroatlas_import_job", default=_Job())
@@ -82,7 +89,8 @@ class ImportReport:
 
 
 def import_file(store: Store, kind: str, path: str | Path, *, input_crs=None,
-                progress: Callable[[int], None] | None = None, clear_empty: bool = False) -> ImportReport:
+                progress: Callable[[int], None] | None = None, clear_empty: bool = False,
+                chunk_rows: int | None = None) -> ImportReport:
     """Validate ``path`` as input of ``kind`` and write it to ``store`` in one transaction.
 
     Parameters
@@ -101,17 +109,25 @@ def import_file(store: Store, kind: str, path: str | Path, *, input_crs=None,
         An empty cell of an optional column clears the stored value. By default it keeps it, and an optional
         column left out of the file keeps every stored value of that column; the values a re-import changes
         go to the history table first.
+    chunk_rows : int, optional
+        Files of :data:`STREAMED_KINDS` are read, checked and written in pieces of this many data rows
+        (default :data:`hydroatlas.store.tables.CHUNK_ROWS`) inside one transaction, so memory stays bounded
+        by the piece, not the file; 0 reads and checks the whole file first. Other kinds are read whole.
 
     Raises
     ------
     ImportDataError
-        With file, row and column of the first problem; the store is unchanged.
+        With file, row and column of the first problem; the store is unchanged. A streamed file reports the
+        first problem of the first piece that has one; its "(N more rows like this)" counts that piece.
     """
     if kind not in KINDS:
         raise ParameterError(f"unknown kind {kind!r}; expected one of {', '.join(KINDS)}")
     path = Path(path)
     label = path.name
     crs_in = _parse_crs(input_crs, label) if input_crs is not None else None
+    if kind in STREAMED_KINDS and chunk_rows != 0:
+        return _import_streamed(store, kind, path, crs_in, progress=progress, clear_empty=clear_empty,
+                                chunk_rows=CHUNK_ROWS if chunk_rows is None else chunk_rows)
     prepare = _PREPARERS[kind]
     job = _Job(clear_empty=clear_empty)
     token = _JOB.set(job)
@@ -133,6 +149,89 @@ def import_file(store: Store, kind: str, path: str | Path, *, input_crs=None,
         result = store.upsert(table, frame, geometry=geometry, progress=progress, keep_when_null=keep)
         store.log_import(kind, label, digest, result)
     return ImportReport(kind, label, result.rows, result.inserted, result.updated, tuple(job.notes))
+
+
+def _import_streamed(store: Store, kind: str, path: Path, crs_in, *, progress, clear_empty: bool,
+                     chunk_rows: int) -> ImportReport:
+    """:func:`import_file` piece by piece: each piece is checked as a whole file would be (keys across
+    pieces included) and written into the one open transaction; a refused piece rolls back every piece."""
+    label = path.name
+    table = TABLE_OF.get(kind, kind)
+    table_columns = set(schema.TABLES[table].column_names)
+    job = _Job(clear_empty=clear_empty, keys={}, cache={})
+    token = _JOB.set(job)
+    try:
+        pieces = iter_csv_chunks(path, required=REQUIRED[kind], label=label, chunk_rows=chunk_rows)
+        first = next(pieces)  # the header is checked before the store is locked
+        digest = _file_sha256(path, label)
+        if progress is not None and hasattr(progress, "total"):
+            progress.total = _count_data_lines(path)  # lines, not rows: a quoted value may span lines
+        optional = [c for c in OPTIONAL[kind] if c in table_columns and c not in _ALWAYS_WRITTEN.get(kind, set())]
+        written = {"keep": ()}
+
+        def frames():
+            for raw in itertools.chain([first], pieces):
+                job.header.update(c for c in raw.columns if c != "source_row")
+                frame = _CHECKERS[kind](store, Cells(raw, label))
+                del raw
+                frame = frame.drop(columns=[c for c in optional if c not in job.header])
+                written["keep"] = () if clear_empty else tuple(c for c in optional if c in job.header)
+                frame["source_file"] = label
+                yield frame
+
+        with store.transaction():
+            result = write_pieces(store, table, frames(), progress=progress, keep_when_null=written)
+            store.log_import(kind, label, digest, result)
+    finally:
+        _JOB.reset(token)
+    return ImportReport(kind, label, result.rows, result.inserted, result.updated, tuple(job.notes))
+
+
+def write_pieces(store: Store, table: str, frames, *, progress=None, keep_when_null: dict) -> WriteResult:
+    """Upsert each frame of ``frames`` (an iterator: each is made after the one before is written) into
+    ``table`` inside the open transaction; ``keep_when_null['keep']`` is read once the first frame is made.
+
+    A store with an ``upsert_pieces`` method (PostGIS: every piece goes to one staging table by COPY, and is
+    merged once at the end) takes the iterator; any other store upserts each piece.
+    """
+    whole = getattr(store, "upsert_pieces", None)
+    if whole is not None:
+        return whole(table, frames, progress=progress, keep_when_null=keep_when_null)
+    rows = inserted = updated = 0
+    for frame in frames:
+        got = store.upsert(table, frame, progress=progress, keep_when_null=keep_when_null["keep"])
+        rows, inserted, updated = rows + got.rows, inserted + got.inserted, updated + got.updated
+    return WriteResult(rows, inserted, updated)
+
+
+def _file_sha256(path: Path, label: str) -> str:
+    try:
+        with path.open("rb") as fh:
+            return hashlib.file_digest(fh, "sha256").hexdigest()
+    except OSError as exc:
+        raise ImportDataError(f"cannot read the file ({exc.strerror})", file=label) from None
+
+
+def _count_data_lines(path: Path) -> int:
+    """Lines after the header, counted block by block (for a progress bar: blank lines and line breaks
+    inside quoted values count too)."""
+    n, last = 0, b"\n"
+    with path.open("rb") as fh:
+        for block in iter(lambda: fh.read(1 << 22), b""):
+            n += block.count(b"\n")
+            last = block[-1:]
+    return max(n - (last == b"\n"), 0)
+
+
+def _store_table(store: Store, table: str, columns: list[str]) -> pd.DataFrame:
+    """``store.read(table, columns)``, read once per streamed import."""
+    cache = _JOB.get().cache
+    if cache is None:
+        return store.read(table, columns)
+    key = (table, tuple(columns))
+    if key not in cache:
+        cache[key] = store.read(table, columns)
+    return cache[key]
 
 
 def _parse_crs(value, label) -> CRS:
@@ -206,11 +305,62 @@ def _value(cells: Cells, kind: str, name: str):
 def _unique(cells: Cells, keys: list[pd.Series], names: tuple[str, ...], hint: str = ""):
     key = pd.DataFrame({n: k.to_numpy() for n, k in zip(names, keys)})
     dup = key.duplicated(keep="first").to_numpy()
+    seen = _JOB.get().keys
+    log = None
+    if seen is not None:  # a streamed file: keys of earlier pieces count too
+        log = seen.setdefault(names, _KeyLog())
+        prior = log.find(key)
+        dup = dup | (prior > 0)
     if dup.any():
         first = int(np.flatnonzero(dup)[0])
         value = ", ".join(f"{n}={key.iloc[first][n]}" for n in names)
-        earlier = key.index[(key == key.iloc[first]).all(axis=1)][0]
-        cells.fail(dup, names[-1], f"duplicate key ({value}); it already appears in row {cells.rows[earlier]}{hint}")
+        if log is not None and prior[first] > 0:
+            earlier_row = int(prior[first])
+        else:
+            earlier_row = cells.rows[key.index[(key == key.iloc[first]).all(axis=1)][0]]
+        cells.fail(dup, names[-1], f"duplicate key ({value}); it already appears in row {earlier_row}{hint}")
+    if log is not None:
+        log.add(key, cells.rows)
+
+
+class _KeyLog:
+    """The keys of the rows of a streamed file read so far, as two 64-bit hashes per key (sorted by the
+    first) and the row each key came from: 24 bytes a row, whatever the keys hold. Two different keys are
+    taken for one only if both hashes agree (odds about 2**-128 per pair of rows)."""
+
+    def __init__(self):
+        self.h1 = np.empty(0, np.uint64)
+        self.h2 = np.empty(0, np.uint64)
+        self.rows = np.empty(0, np.int64)
+
+    @staticmethod
+    def _hashes(key: pd.DataFrame):
+        h1 = pd.util.hash_pandas_object(key, index=False).to_numpy(np.uint64)
+        h2 = pd.util.hash_pandas_object(key, index=False, hash_key="hydroatlas-keys2").to_numpy(np.uint64)
+        return h1, h2
+
+    def find(self, key: pd.DataFrame) -> np.ndarray:
+        """The earlier row of each key (0 where the key is new)."""
+        out = np.zeros(len(key), np.int64)
+        if not len(self.h1) or not len(key):
+            return out
+        h1, h2 = self._hashes(key)
+        lo = np.searchsorted(self.h1, h1, side="left")
+        hi = np.searchsorted(self.h1, h1, side="right")
+        for i in np.flatnonzero(hi > lo):
+            for j in range(lo[i], hi[i]):
+                if self.h2[j] == h2[i]:
+                    out[i] = self.rows[j]
+                    break
+        return out
+
+    def add(self, key: pd.DataFrame, rows) -> None:
+        h1, h2 = self._hashes(key)
+        order = np.argsort(h1, kind="stable")
+        h1, h2, rows = h1[order], h2[order], np.asarray(rows, np.int64)[order]
+        at = np.searchsorted(self.h1, h1)
+        self.h1, self.h2 = np.insert(self.h1, at, h1), np.insert(self.h2, at, h2)
+        self.rows = np.insert(self.rows, at, rows)
 
 
 def _exists(cells: Cells, values: pd.DataFrame, known: pd.DataFrame, column: str, what: str, hint: str):
@@ -218,7 +368,13 @@ def _exists(cells: Cells, values: pd.DataFrame, known: pd.DataFrame, column: str
     if known.empty:
         present = np.zeros(len(values), dtype=bool)
     else:
-        idx = pd.MultiIndex.from_frame(known.astype(str))
+        cache = _JOB.get().cache
+        held = cache.get(("index", id(known))) if cache is not None else None
+        idx = held[1] if held is not None and held[0] is known else None
+        if idx is None:
+            idx = pd.MultiIndex.from_frame(known.astype(str))
+            if cache is not None:  # keeps ``known`` alive with its index, so its id names it
+                cache[("index", id(known))] = (known, idx)
         present = pd.MultiIndex.from_frame(values.astype(str)).isin(idx)
     missing = ~present
     if missing.any():
@@ -433,10 +589,10 @@ def _prepare_zones(store, path, label, crs_in):
 
 
 def _zone_refs(cells: Cells, store, well_id, zone_id):
-    wells = store.read("wells", ["well_id"])
+    wells = _store_table(store, "wells", ["well_id"])
     _exists(cells, pd.DataFrame({"well_id": well_id}), wells, "well_id", "well", "import it in a wells file first")
     _exists(cells, pd.DataFrame({"well_id": well_id, "zone_id": zone_id}),
-            store.read("zones", ["well_id", "zone_id"]), "zone_id", "zone", "import it in a zones file first")
+            _store_table(store, "zones", ["well_id", "zone_id"]), "zone_id", "zone", "import it in a zones file first")
 
 
 def _unit_labels(cells: Cells, column: str, table: dict, quantity: str) -> pd.Series:
@@ -452,7 +608,10 @@ def _unit_labels(cells: Cells, column: str, table: dict, quantity: str) -> pd.Se
 
 
 def _prepare_ktests(store, path, label, crs_in):
-    cells = _read(path, label, "ktests")
+    return _check_ktests(store, _read(path, label, "ktests")), None
+
+
+def _check_ktests(store, cells: Cells) -> pd.DataFrame:
     well_id = _value(cells, "ktests", "well_id")
     zone_id = _value(cells, "ktests", "zone_id")
     tested_on = _value(cells, "ktests", "tested_on")
@@ -479,14 +638,17 @@ def _prepare_ktests(store, path, label, crs_in):
                           "quality": quality, "source": source, "orientation": orientation,
                           "attrs": _attrs(cells, "ktests"),
                           "source_row": cells.rows})
-    return frame, None
+    return frame
 
 
 def _prepare_heads(store, path, label, crs_in):
-    cells = _read(path, label, "heads")
+    return _check_heads(store, _read(path, label, "heads")), None
+
+
+def _check_heads(store, cells: Cells) -> pd.DataFrame:
     if not cells.has("head") and not (cells.has("depth_to_water") and cells.has("ref_elev")):
         raise ImportDataError("missing column head (or both depth_to_water and ref_elev)",
-                              file=label, row=0, column="head")
+                              file=cells.file, row=0, column="head")
     well_id = _value(cells, "heads", "well_id")
     zone_id = _value(cells, "heads", "zone_id")
     measured_at = _value(cells, "heads", "measured_at")
@@ -508,7 +670,7 @@ def _prepare_heads(store, path, label, crs_in):
     frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "measured_at": measured_at, "head": head,
                           "depth_to_water": dtw, "ref_elev": ref, "quality": quality,
                           "attrs": _attrs(cells, "heads"), "source_row": cells.rows})
-    return frame, None
+    return frame
 
 
 def _prepare_pumping(store, path, label, crs_in):
@@ -557,18 +719,21 @@ def _prepare_springs(store, path, label, crs_in):
 
 
 def _prepare_discharge(store, path, label, crs_in):
-    cells = _read(path, label, "discharge")
+    return _check_discharge(store, _read(path, label, "discharge")), None
+
+
+def _check_discharge(store, cells: Cells) -> pd.DataFrame:
     spring_id = _value(cells, "discharge", "spring_id")
     measured_at = _value(cells, "discharge", "measured_at")
     q = _value(cells, "discharge", "discharge")
     unit = _value(cells, "discharge", "rate_unit")
     _unique(cells, [spring_id, measured_at], ("spring_id", "measured_at"))
-    _exists(cells, pd.DataFrame({"spring_id": spring_id}), store.read("springs", ["spring_id"]), "spring_id",
+    _exists(cells, pd.DataFrame({"spring_id": spring_id}), _store_table(store, "springs", ["spring_id"]), "spring_id",
             "spring", "import it in a springs file first")
     frame = pd.DataFrame({"spring_id": spring_id, "measured_at": measured_at, "discharge": q, "rate_unit": unit,
                           "discharge_m3d": q * unit.map(RATE_UNITS).to_numpy(float),
                           "attrs": _attrs(cells, "discharge"), "source_row": cells.rows})
-    return frame, None
+    return frame
 
 
 def _prepare_areas(store, path, label, crs_in):
@@ -658,7 +823,10 @@ def _note_domain_changes(store, area_id: pd.Series, kind: pd.Series) -> None:
 
 
 def _prepare_slugtests(store, path, label, crs_in):
-    cells = _read(path, label, "slugtests")
+    return _check_slugtests(store, _read(path, label, "slugtests")), None
+
+
+def _check_slugtests(store, cells: Cells) -> pd.DataFrame:
     well_id, zone_id, test_id = (_value(cells, "slugtests", c) for c in ("well_id", "zone_id", "test_id"))
     t_s = _value(cells, "slugtests", "t_s")
     disp = _value(cells, "slugtests", "displacement")
@@ -667,7 +835,7 @@ def _prepare_slugtests(store, path, label, crs_in):
     _zone_refs(cells, store, well_id, zone_id)
     frame = pd.DataFrame({"well_id": well_id, "zone_id": zone_id, "test_id": test_id, "t_s": t_s,
                           "displacement": disp, "attrs": _attrs(cells, "slugtests"), "source_row": cells.rows})
-    return frame, None
+    return frame
 
 
 #: optional sluggeometry columns kept (checked and typed) in the row's attrs: the slug_geometry table has no
@@ -831,3 +999,4 @@ def _prepare_transducer(store, path, label, crs_in):
 
 
 _PREPARERS = {kind: globals()[f"_prepare_{kind}"] for kind in KINDS}
+_CHECKERS = {kind: globals()[f"_check_{kind}"] for kind in STREAMED_KINDS}

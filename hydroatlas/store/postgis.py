@@ -36,7 +36,6 @@ from __future__ import annotations
 import json
 import warnings
 from contextlib import contextmanager
-from datetime import datetime, timezone
 from typing import Callable, Iterator
 from urllib.parse import urlsplit, urlunsplit
 
@@ -46,8 +45,9 @@ import shapely
 from pyproj import CRS
 
 from ..errors import NotAStoreError, ParameterError, StoreError
-from .base import AGGREGATE_COLUMNS, Store, StoreSettings, WriteResult
-from .schema import HISTORY_TABLE, SCHEMA_VERSION, TABLES, Table
+from .base import AGGREGATE_COLUMNS, StoreSettings, WriteResult
+from .common import SQLStore, mismatch_frame, q, settings_rows, version_columns
+from .schema import HISTORY_TABLE, TABLES, Table
 
 SETTINGS_TABLE = "hydroatlas_settings"
 #: URL schemes of the server backend (``postgresql+psycopg://`` is the SQLAlchemy spelling)
@@ -59,15 +59,6 @@ GPKG_CUSTOM_SRS_ID = 100000
 #: rows written per COPY batch (the progress callback is called after each)
 COPY_BATCH_ROWS = 50_000
 _PG_TYPES = {"TEXT": 'text COLLATE "C"', "REAL": "double precision", "INTEGER": "bigint"}
-
-
-def q(name: str) -> str:
-    """Quote an SQL identifier (some columns, like ``end``, are keywords)."""
-    return '"' + name.replace('"', '""') + '"'
-
-
-def _now() -> str:
-    return datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
 
 
 def is_server_url(location) -> bool:
@@ -251,16 +242,9 @@ def key_text_sql(spec: Table, alias: str) -> str:
     return " || '/' || ".join(f"hydroatlas_text({alias}.{q(c)})" for c in spec.key)
 
 
-def _version_columns(spec: Table) -> list[str]:
-    cols = list(spec.column_names) + list(spec.lifecycle)
-    if spec.geometry:
-        cols.append("geom")
-    return cols
-
-
 def _version_json_sql(spec: Table, alias: str) -> str:
     parts = []
-    for c in _version_columns(spec):
+    for c in version_columns(spec, geometry=True):
         value = f"to_json(hydroatlas_gpkg_hex({alias}.geom))::text" if c == "geom" else \
             f"hydroatlas_json({alias}.{q(c)})"
         parts.append(f"'{json.dumps(c)}:' || {value}")
@@ -276,7 +260,7 @@ def history_trigger_sql(spec: Table) -> list[str]:
     func = q(f"{name}_keep_history")
     key = key_json_sql(spec, "OLD")
     old = _version_json_sql(spec, "OLD")
-    differs = " OR ".join(f"OLD.{q(c)} IS DISTINCT FROM NEW.{q(c)}" for c in _version_columns(spec))
+    differs = " OR ".join(f"OLD.{q(c)} IS DISTINCT FROM NEW.{q(c)}" for c in version_columns(spec, geometry=True))
     insert = (f"INSERT INTO {q(HISTORY_TABLE)} (table_name, record_key, action, changed_at, old_version, "
               "new_source_file, reason) VALUES ")
     now = "to_char(statement_timestamp() AT TIME ZONE 'UTC', 'YYYY-MM-DD\"T\"HH24:MI:SS.MS\"Z\"')"
@@ -382,7 +366,7 @@ def _qmark_to_pyformat(sql: str) -> str:
     return "".join(out)
 
 
-class PostGISStore(Store):
+class PostGISStore(SQLStore):
     """A store in a PostgreSQL/PostGIS database; open with :func:`hydroatlas.open_store` and a URL.
 
     Parameters
@@ -393,6 +377,7 @@ class PostGISStore(Store):
     """
 
     sql_aggregates = True  # unit statistics are computed in the database (see aggregate_logk)
+    _param = "%s"
 
     def __init__(self, url: str, pg, settings: StoreSettings, srid: int):
         self.url = url
@@ -423,9 +408,8 @@ class PostGISStore(Store):
 
     @classmethod
     def create(cls, url: str, settings: StoreSettings) -> "PostGISStore":
-        psycopg = _psycopg()
         pg = cls._connect(url)
-        try:
+        with _closed_on_error(pg, url):
             if _has_table(pg, SETTINGS_TABLE):
                 raise StoreError(f"a hydroatlas store already exists in {display_url(url)}; choose another database "
                                  "(createdb NAME) or open this one")
@@ -447,43 +431,24 @@ class PostGISStore(Store):
                     pg.execute(stmt)
                 pg.execute(f"CREATE TABLE {SETTINGS_TABLE} (key text COLLATE \"C\" PRIMARY KEY, value text NOT NULL)")
                 with pg.cursor() as cur:
-                    cur.executemany(f"INSERT INTO {SETTINGS_TABLE} VALUES (%s, %s)", [
-                        ("schema_version", SCHEMA_VERSION),
-                        ("crs", settings.crs.to_wkt()),
-                        ("length_unit", settings.length_unit),
-                        ("vertical_datum", settings.vertical_datum),
-                        ("created_at", _now()),
-                    ])
+                    cur.executemany(f"INSERT INTO {SETTINGS_TABLE} VALUES (%s, %s)", settings_rows(settings))
                 for spec in TABLES.values():
                     for stmt in table_ddl(spec, srid):
                         pg.execute(stmt)
                 pg.execute(f"CREATE INDEX IF NOT EXISTS {HISTORY_TABLE}_by_table ON {HISTORY_TABLE} "
                            "(table_name, fid)")
-        except psycopg.Error as exc:
-            pg.close()
-            raise _friendly(exc, url) from None
-        except BaseException:
-            pg.close()
-            raise
         return cls(url, pg, settings, srid)
 
     @classmethod
     def open(cls, url: str) -> "PostGISStore":
-        psycopg = _psycopg()
         pg = cls._connect(url)
-        try:
+        with _closed_on_error(pg, url):
             if not _has_table(pg, SETTINGS_TABLE):
                 raise NotAStoreError(f"{display_url(url)} holds no hydroatlas store; create one with "
                                      f"'hydroatlas init {display_url(url)} --crs EPSG:NNNN'")
             values = dict(pg.execute(f"SELECT key, value FROM {SETTINGS_TABLE}").fetchall())
             row = pg.execute("SELECT srid FROM geometry_columns WHERE f_table_name = 'wells' "
                              "AND f_table_schema = current_schema()").fetchone()
-        except psycopg.Error as exc:
-            pg.close()
-            raise _friendly(exc, url) from None
-        except BaseException:
-            pg.close()
-            raise
         settings = StoreSettings(CRS.from_wkt(values["crs"]), values["length_unit"], values["vertical_datum"])
         srid = row[0] if row else _srid_of(settings.crs)[0]
         return cls(url, pg, settings, srid)
@@ -498,12 +463,6 @@ class PostGISStore(Store):
         return [tuple(r) for r in self._pg.execute(f"SELECT key, value FROM {SETTINGS_TABLE} ORDER BY key")]
 
     # -- reading ----------------------------------------------------------------------------
-    def _spec(self, table: str) -> Table:
-        try:
-            return TABLES[table]
-        except KeyError:
-            raise ParameterError(f"unknown table {table!r}; expected one of {sorted(TABLES)}") from None
-
     def _fetch(self, sql: str, params=()) -> list[tuple]:
         try:
             with self._pg.cursor() as cur:
@@ -512,46 +471,17 @@ class PostGISStore(Store):
         except _psycopg().Error as exc:
             raise _friendly(exc, self.url) from None
 
-    def read(self, table: str, columns: list[str] | None = None, *, include_retired: bool = False) -> pd.DataFrame:
-        """Rows of ``table`` in import order; retired records (and rows of retired wells, zones or springs)
-        are left out unless ``include_retired``."""
-        spec = self._spec(table)
-        cols = list(columns) if columns else list(spec.column_names)
-        bad = set(cols) - set(spec.column_names) - set(spec.lifecycle)
-        if bad:
-            raise ParameterError(f"table {table} has no column(s) {sorted(bad)}")
-        where = "" if include_retired else self._active_where(spec, "t")
-        sql = f"SELECT {', '.join('t.' + q(c) for c in cols)} FROM {q(table)} AS t{where} ORDER BY t.fid"
-        frame = pd.DataFrame.from_records(self._fetch(sql), columns=cols)
-        for c in spec.columns:
-            if c.name in frame and c.sql_type == "REAL":
-                frame[c.name] = pd.to_numeric(frame[c.name]).astype(float)
-        return frame
+    def _execute(self, sql: str, params=()) -> int:
+        return self._pg.execute(sql, params).rowcount
 
-    def _has_retired(self, spec: Table) -> bool:
-        """True when this table or a parent it cascades from holds a retired row."""
-        if spec.provenance and self._fetch(
-                f"SELECT 1 FROM {q(spec.name)} WHERE retired_at IS NOT NULL LIMIT 1"):
-            return True
-        return any(self._has_retired(TABLES[parent]) for _, parent, _ in spec.cascade_parents)
+    def _key_text_sql(self, spec: Table, alias: str) -> str:
+        return key_text_sql(spec, alias)
 
-    def _active_where(self, spec: Table, alias: str) -> str:
-        conds = self._active_conditions(spec, alias)
-        return (" WHERE " + " AND ".join(conds)) if conds else ""
-
-    def _active_conditions(self, spec: Table, alias: str) -> list[str]:
-        if not spec.provenance or not self._has_retired(spec):
-            return []
-        conds = [f"{alias}.retired_at IS NULL"]
-        for i, (local, parent, remote) in enumerate(spec.cascade_parents):
-            pspec = TABLES[parent]
-            if not self._has_retired(pspec):
-                continue
-            pa = f"{alias}_{i}"
-            join = " AND ".join(f"{pa}.{q(r)} = {alias}.{q(lc)}" for lc, r in zip(local, remote))
-            inner = " AND ".join([join] + self._active_conditions(pspec, pa))
-            conds.append(f"EXISTS (SELECT 1 FROM {q(parent)} AS {pa} WHERE {inner})")
-        return conds
+    def _current_version(self, spec: Table, fid: int) -> tuple[dict, str]:
+        cols = version_columns(spec)
+        row = self._fetch(f"SELECT {', '.join('t.' + q(c) for c in cols)}, {key_json_sql(spec, 't')} "
+                          f"FROM {q(spec.name)} AS t WHERE fid = %s", (fid,))[0]
+        return dict(zip(cols, row[:-1])), row[-1]
 
     def read_geometries(self, table: str):
         import geopandas as gpd
@@ -565,10 +495,6 @@ class PostGISStore(Store):
                 self._fetch(f"SELECT ST_AsBinary(t.geom, 'NDR') FROM {q(table)} AS t{where} ORDER BY t.fid")]
         geoms = shapely.from_wkb(wkbs) if wkbs else []
         return gpd.GeoDataFrame(frame, geometry=list(geoms), crs=self.settings.crs)
-
-    def count(self, table: str) -> int:
-        self._spec(table)
-        return self._fetch(f"SELECT count(*) FROM {q(table)}")[0][0]
 
     def snapshot(self) -> dict[str, list[tuple]]:
         """Every row of every table (geometries as WKB) and the settings, for tests that prove nothing changed."""
@@ -604,10 +530,7 @@ class PostGISStore(Store):
                 problem = "moved"
             if problem:
                 out.append((fid, *keys, x, y, gx, gy, problem))
-        frame = pd.DataFrame(out, columns=["fid", *key, "x", "y", "geom_x", "geom_y", "problem"])
-        for c in ("x", "y", "geom_x", "geom_y"):
-            frame[c] = pd.to_numeric(frame[c]).astype(float) if len(frame) else np.array([], dtype=float)
-        return frame
+        return mismatch_frame(out, key)
 
     # -- unit statistics in the database --------------------------------------------------
     def aggregate_logk(self, groups: pd.DataFrame, *, per: str = "test", exclude_wells=(),
@@ -766,9 +689,23 @@ FROM c JOIN a ON a.grp = c.grp {med_join} ORDER BY c.grp"""
         statement, in file order (so that ``fid`` follows the file, as in a GeoPackage: a temporary table
         filled by one COPY is read back by a sequential scan in the order it was written, with no sort).
         """
+        return self._upsert_pieces(table, iter([(frame, geometry)]), progress=progress,
+                                   keep=lambda: keep_when_null, merge_attrs=merge_attrs)
+
+    def upsert_pieces(self, table: str, frames, *, progress: Callable[[int], None] | None = None,
+                      keep_when_null: dict) -> WriteResult:
+        """:meth:`upsert` of a streamed import: each frame of the iterator ``frames`` (same columns, no
+        geometry, made only after the one before is written) is COPYed into the one staging table, and all
+        are merged once at the end; ``keep_when_null['keep']`` is read after the first frame is made."""
+        return self._upsert_pieces(table, ((f, None) for f in frames), progress=progress,
+                                   keep=lambda: keep_when_null["keep"])
+
+    def _upsert_pieces(self, table: str, pieces, *, progress, keep, merge_attrs: bool = True) -> WriteResult:
         if not self._in_txn:
             raise StoreError("upsert must run inside store.transaction()")
         spec = self._spec(table)
+        frame, geometry = next(pieces)
+        keep_when_null = keep()
         cols = [c for c in spec.column_names if c in frame.columns]
         missing = [c.name for c in spec.columns if c.not_null and c.name not in cols and c.default is None]
         if missing:
@@ -793,6 +730,12 @@ FROM c JOIN a ON a.grp = c.grp {med_join} ORDER BY c.grp"""
         cur.execute(f"CREATE TEMP TABLE {stage} ("
                     + ", ".join(f"{q(c)} {t}" for c, t in zip(stage_cols, stage_types)) + ") ON COMMIT DROP")
         self._copy_rows(cur, stage, stage_cols, zip(*arrays), progress)
+        del arrays
+        keys = frame[list(spec.key)] if spec.key and set(spec.key) <= set(frame.columns) else frame.iloc[:0]
+        for more, _ in pieces:  # a streamed file: the next pieces, each COPYed after it was checked
+            self._copy_rows(cur, stage, cols, zip(*[_pg_values(more[c], types[c]) for c in cols]), progress)
+            n += len(more)
+            keys = frame.iloc[:0]  # the whole file's keys are not kept: a conflict names no record
         target_cols = (["geom"] if spec.geometry else []) + cols
         select = [f"ST_GeomFromWKB(s.geom, {int(self.srid)})" if c == "geom" else f"s.{q(c)}"
                   for c in target_cols]
@@ -824,7 +767,6 @@ FROM c JOIN a ON a.grp = c.grp {med_join} ORDER BY c.grp"""
             cur.execute(sql)
             inserted, updated = cur.fetchone()
         except (psycopg.errors.SerializationFailure, psycopg.errors.DeadlockDetected) as exc:
-            keys = frame[list(spec.key)] if spec.key and set(spec.key) <= set(frame.columns) else frame.iloc[:0]
             raise _Conflict(table, keys, exc) from None
         except psycopg.errors.CardinalityViolation:
             raise StoreError(f"the rows for {table} hold one natural key ({', '.join(spec.key)}) twice; "
@@ -867,88 +809,13 @@ FROM c JOIN a ON a.grp = c.grp {med_join} ORDER BY c.grp"""
         return row[0] if row else None
 
     # -- record lifecycle ---------------------------------------------------------------------
-    def find_records(self, table: str, ids: list[str]) -> dict[str, int]:
-        """fid of each record named by ``ids`` (its natural-key values joined by '/').
-
-        Raises ParameterError naming the ids that match no record.
-        """
-        spec = self._spec(table)
-        if not spec.key or not spec.provenance:
-            raise ParameterError(f"records of {table} have no key to name them by")
-        found, missing = {}, []
-        for ident in ids:
-            rows = self._fetch(f"SELECT fid FROM {q(table)} AS t WHERE {key_text_sql(spec, 't')} = %s "
-                               "ORDER BY fid LIMIT 1", (ident,))
-            if rows:
-                found[ident] = rows[0][0]
-            else:
-                missing.append(ident)
-        if missing:
-            raise ParameterError(f"no {table} record {', '.join(map(repr, missing))}; name a record by its key "
-                                 f"({'/'.join(spec.key)})")
-        return found
-
-    def set_retired(self, table: str, ids: list[str], *, reason: str | None) -> int:
-        """Retire (``reason`` given) or restore (``reason`` None) records; returns how many changed."""
-        if not self._in_txn:
-            raise StoreError("set_retired must run inside store.transaction()")
-        self._spec(table)
-        fids = self.find_records(table, ids)
-        changed = 0
+    def _set_retired_row(self, table: str, ident: str, fid: int, reason: str | None) -> int:
         psycopg = _psycopg()
-        for ident, fid in fids.items():
-            try:
-                if reason is None:
-                    cur = self._pg.execute(f"UPDATE {q(table)} SET retired_at = NULL, retired_reason = NULL "
-                                           "WHERE fid = %s AND retired_at IS NOT NULL", (fid,))
-                else:
-                    cur = self._pg.execute(f"UPDATE {q(table)} SET retired_at = %s, retired_reason = %s "
-                                           "WHERE fid = %s AND retired_at IS NULL", (_now(), reason, fid))
-            except (psycopg.errors.SerializationFailure, psycopg.errors.DeadlockDetected) as exc:
-                raise StoreError(f"{self.location}: another import or edit changed the {table} record {ident} "
-                                 "while this command was changing it; nothing was kept. Run it again") from exc
-            changed += cur.rowcount
-        return changed
-
-    def retired(self) -> pd.DataFrame:
-        """Every retired record: table, key, when and why."""
-        rows = []
-        for spec in TABLES.values():
-            if not spec.provenance or not spec.key:
-                continue
-            for key, at, reason in self._fetch(
-                    f"SELECT {key_text_sql(spec, 't')}, retired_at, retired_reason FROM {q(spec.name)} AS t "
-                    "WHERE retired_at IS NOT NULL ORDER BY fid"):
-                rows.append({"table": spec.name, "record": key, "retired_at": at, "reason": reason})
-        return pd.DataFrame(rows, columns=["table", "record", "retired_at", "reason"])
-
-    def record_versions(self, table: str, ident: str) -> list[dict]:
-        """Every version of one record, oldest first; the last is the current one."""
-        spec = self._spec(table)
-        fid = self.find_records(table, [ident])[ident]
-        cols = list(spec.column_names) + list(spec.lifecycle)
-        row = self._fetch(f"SELECT {', '.join('t.' + q(c) for c in cols)}, {key_json_sql(spec, 't')} "
-                          f"FROM {q(table)} AS t WHERE fid = %s", (fid,))[0]
-        current, key = dict(zip(cols, row[:-1])), row[-1]
-        out = []
-        for action, at, old, new_file, reason in self._fetch(
-                f"SELECT action, changed_at, old_version, new_source_file, reason FROM {q(HISTORY_TABLE)} "
-                "WHERE table_name = %s AND record_key = %s ORDER BY fid", (table, key)):
-            version = json.loads(old)
-            version.pop("geom", None)
-            out.append({"version": len(out) + 1, "replaced_at": at, "replaced_by": action,
-                        "replaced_by_file": new_file, "reason": reason, **version})
-        out.append({"version": len(out) + 1, "replaced_at": None, "replaced_by": None, "replaced_by_file": None,
-                    "reason": None, **current})
-        return out
-
-    def log_import(self, kind: str, file: str, sha256: str, result: WriteResult) -> None:
-        if not self._in_txn:
-            raise StoreError("log_import must run inside store.transaction()")
-        self._pg.execute(
-            "INSERT INTO imports (kind, file, sha256, rows, inserted, updated, imported_at) "
-            "VALUES (%s, %s, %s, %s, %s, %s, %s)",
-            (kind, file, sha256, result.rows, result.inserted, result.updated, _now()))
+        try:
+            return super()._set_retired_row(table, ident, fid, reason)
+        except (psycopg.errors.SerializationFailure, psycopg.errors.DeadlockDetected) as exc:
+            raise StoreError(f"{self.location}: another import or edit changed the {table} record {ident} "
+                             "while this command was changing it; nothing was kept. Run it again") from exc
 
     def close(self) -> None:
         if self._pg is not None:
@@ -957,6 +824,19 @@ FROM c JOIN a ON a.grp = c.grp {med_join} ORDER BY c.grp"""
 
 
 # -- helpers ---------------------------------------------------------------------------------------------------------
+@contextmanager
+def _closed_on_error(pg, url: str):
+    """Close a connection not yet handed to a store when the block fails (a PostgreSQL error as one line)."""
+    try:
+        yield
+    except _psycopg().Error as exc:
+        pg.close()
+        raise _friendly(exc, url) from None
+    except BaseException:
+        pg.close()
+        raise
+
+
 def _has_table(pg, name: str) -> bool:
     return pg.execute("SELECT to_regclass(%s) IS NOT NULL", (name,)).fetchone()[0]
 

@@ -15,9 +15,11 @@ from __future__ import annotations
 
 import csv
 import io
+import itertools
 import re
 import unicodedata
 from pathlib import Path
+from typing import Iterator
 
 import numpy as np
 import pandas as pd
@@ -100,13 +102,127 @@ def read_csv_table(path: str | Path, *, required: tuple[str, ...], label: str | 
     return frame
 
 
+#: data rows per piece of a streamed file (:func:`iter_csv_chunks`)
+CHUNK_ROWS = 200_000
+
+
+def iter_csv_chunks(path: str | Path, *, required: tuple[str, ...], label: str | None = None,
+                    chunk_rows: int = CHUNK_ROWS) -> Iterator[pd.DataFrame]:
+    """:func:`read_csv_table` in pieces of about ``chunk_rows`` data rows, never holding the whole file.
+
+    Each piece is a frame of stripped strings with the file's header columns and ``source_row`` (the file's
+    own 1-based data rows, counted across pieces). The header is checked first, then each piece with the
+    same checks and messages as :func:`read_csv_table` (UTF-8, NUL bytes, field counts, parsing, trimming);
+    a piece ends at a line end outside quotes, so a quoted value holding line breaks stays whole. A file
+    whose first line is blank, or holds an unclosed quote or a bare carriage return, is read whole by
+    :func:`read_csv_table` and given as one piece. ImportDataError names file and row.
+    """
+    path = Path(path)
+    name = label or path.name
+    chunk_rows = max(int(chunk_rows), 1)
+    try:
+        fh = path.open("rb")
+    except FileNotFoundError:
+        raise ImportDataError("file not found", file=name) from None
+    except OSError as exc:
+        raise ImportDataError(f"cannot read the file ({exc.strerror})", file=name) from None
+    with fh:
+        first = fh.readline()
+        whole = (not first.strip() or first.count(b'"') % 2 or b"\r" in first.rstrip(b"\r\n"))
+        if not whole:
+            try:
+                header_text = first.decode("utf-8-sig")
+            except UnicodeDecodeError:
+                whole = True  # read_csv_table words the message
+        if whole or "\x00" in header_text:
+            yield read_csv_table(path, required=required, label=label)
+            return
+        header_line = header_text.splitlines()[0]
+        if "," not in header_line:
+            for delim, word in ((";", "semicolon"), ("\t", "tab"), ("|", "pipe")):
+                if delim in header_line:
+                    raise ImportDataError(
+                        f"the file is {word}-delimited; hydroatlas reads comma-separated files "
+                        "(re-save it as CSV with commas)", file=name, row=0)
+        written = [normalize_text(c) for c in next(csv.reader(io.StringIO(header_line)))]
+        dupes = sorted({c for c in written if written.count(c) > 1})
+        if dupes:
+            raise ImportDataError(f"the header repeats column(s) {', '.join(dupes)}; each column name may appear "
+                                  "once", file=name, row=0, column=dupes[0])
+        blank = [i for i, c in enumerate(written) if not c]
+        if blank:
+            raise ImportDataError(f"header column {blank[0] + 1} has no name", file=name, row=0)
+        missing = [c for c in required if c not in written]
+        if missing:
+            raise ImportDataError(
+                f"missing required column(s) {', '.join(missing)}; the header has {', '.join(written)}",
+                file=name, row=0, column=missing[0])
+        byte_pos, lines_before, rows_before = len(first), 1, 0
+        while True:
+            lines = list(itertools.islice(fh, chunk_rows))
+            if not lines:
+                break
+            odd = sum(line.count(b'"') for line in lines) % 2
+            while odd:  # a quoted value goes on past the piece's last line: take lines until the quote closes
+                more = fh.readline()
+                if not more:
+                    break
+                lines.append(more)
+                odd ^= more.count(b'"') % 2
+            block = b"".join(lines)
+            del lines
+            try:
+                text = block.decode("utf-8")
+            except UnicodeDecodeError as exc:
+                line = lines_before + block[:exc.start].count(b"\n") + 1
+                raise ImportDataError(
+                    f"byte {byte_pos + exc.start} is not valid UTF-8 (0x{block[exc.start]:02x}); save the file as "
+                    "UTF-8", file=name, row=line - 1) from None
+            nul = text.find("\x00")
+            if nul >= 0:
+                line = lines_before + text.count("\n", 0, nul) + 1
+                raise ImportDataError("the file holds a NUL byte (a binary or damaged file?); save it as plain "
+                                      "UTF-8 CSV", file=name, row=line - 1)
+            piece = header_line + "\n" + text
+            _check_field_counts(piece, name, row_offset=rows_before, line_offset=lines_before - 1)
+            try:
+                frame = pd.read_csv(io.StringIO(piece), dtype=str, keep_default_na=False, na_filter=False,
+                                    skip_blank_lines=True, quoting=csv.QUOTE_MINIMAL, index_col=False)
+            except pd.errors.ParserError as exc:
+                msg = str(exc)
+                line = _line_from_parser_message(msg)
+                raise ImportDataError(f"cannot parse the row ({msg.strip()})", file=name,
+                                      row=line - 1 + lines_before - 1 if line else None) from None
+            del piece
+            frame.columns = written
+            if not text.isascii():
+                for c in frame.columns:
+                    frame[c] = frame[c].map(normalize_text)
+            elif _is_padded(text):
+                for c in frame.columns:
+                    frame[c] = frame[c].str.strip()
+            byte_pos += len(block)
+            lines_before += block.count(b"\n")
+            del block, text
+            if frame.empty:
+                continue
+            frame["source_row"] = np.arange(rows_before + 1, rows_before + len(frame) + 1)
+            rows_before += len(frame)
+            yield frame
+        if rows_before == 0:
+            raise ImportDataError("the file has a header but no data rows", file=name)
+
+
 def normalize_text(value: str) -> str:
     """A cell as stored: Unicode white space trimmed at both ends (non-breaking spaces too), NFC form."""
     return unicodedata.normalize("NFC", value.strip())
 
 
-def _check_field_counts(text: str, name: str) -> None:
-    """Refuse a row with more or fewer fields than the header (pandas would shift or pad it silently)."""
+def _check_field_counts(text: str, name: str, *, row_offset: int = 0, line_offset: int = 0) -> None:
+    """Refuse a row with more or fewer fields than the header (pandas would shift or pad it silently).
+
+    ``text`` is the header line and data lines; ``row_offset`` data rows and ``line_offset`` file lines
+    come before its data lines in the file (a piece of a streamed file)."""
     if '"' not in text and "\r" not in text:
         # no quoting: a row's field count is its comma count + 1, counted for every line at once
         data = np.frombuffer(text.encode("utf-8"), dtype=np.uint8)
@@ -136,9 +252,10 @@ def _check_field_counts(text: str, name: str) -> None:
                 hint = (" (an unquoted comma inside a value? quote the value)" if more == "more"
                         else " (a missing value? leave the cell empty with its comma)")
                 raise ImportDataError(f"the row has {len(fields)} fields, {more} than the header's {width}{hint}",
-                                      file=name, row=row)
+                                      file=name, row=row + row_offset)
     except csv.Error as exc:
-        raise ImportDataError(f"cannot parse the row ({exc})", file=name, row=max(reader.line_num - 1, 0)) from None
+        raise ImportDataError(f"cannot parse the row ({exc})", file=name,
+                              row=max(reader.line_num - 1, 0) + line_offset) from None
 
 
 def _is_padded(text: str) -> bool:
