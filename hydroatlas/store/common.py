@@ -153,6 +153,21 @@ class SQLStore(Store):
             conds.append(f"EXISTS (SELECT 1 FROM {q(parent)} AS {pa} WHERE {inner})")
         return conds
 
+    @abstractmethod
+    def _geometries(self, table: str, where: str) -> list:
+        """The shapely geometries of ``table``'s rows that pass ``where``, in fid order (backend SQL)."""
+
+    def read_geometries(self, table: str):
+        """A GeoDataFrame of a feature table's active rows in the store CRS."""
+        import geopandas as gpd
+
+        spec = self._spec(table)
+        if not spec.geometry:
+            raise ParameterError(f"table {table} has no geometry")
+        frame = self.read(table)
+        geoms = self._geometries(table, self._active_where(spec, "t"))
+        return gpd.GeoDataFrame(frame, geometry=geoms, crs=self.settings.crs)
+
     def count(self, table: str) -> int:
         self._spec(table)
         return self._fetch(f"SELECT count(*) FROM {q(table)}")[0][0]

@@ -299,17 +299,9 @@ class GeoPackageStore(SQLStore):
     def _touched(self, table: str) -> None:
         self._conn.execute("UPDATE gpkg_contents SET last_change=? WHERE table_name=?", (_now(), table))
 
-    def read_geometries(self, table: str):
-        import geopandas as gpd
-
-        spec = self._spec(table)
-        if not spec.geometry:
-            raise ParameterError(f"table {table} has no geometry")
-        frame = self.read(table)
-        where = self._active_where(spec, "t")
+    def _geometries(self, table: str, where: str) -> list:
         blobs = [r[0] for r in self._conn.execute(f"SELECT t.geom FROM {q(table)} AS t{where} ORDER BY t.fid")]
-        geoms = decode_geometries(blobs) if blobs else []
-        return gpd.GeoDataFrame(frame, geometry=list(geoms), crs=self.settings.crs)
+        return list(decode_geometries(blobs)) if blobs else []
 
     def snapshot(self) -> dict[str, list[tuple]]:
         """Every row of every table, for tests that prove nothing changed."""

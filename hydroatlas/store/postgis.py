@@ -483,18 +483,10 @@ class PostGISStore(SQLStore):
                           f"FROM {q(spec.name)} AS t WHERE fid = %s", (fid,))[0]
         return dict(zip(cols, row[:-1])), row[-1]
 
-    def read_geometries(self, table: str):
-        import geopandas as gpd
-
-        spec = self._spec(table)
-        if not spec.geometry:
-            raise ParameterError(f"table {table} has no geometry")
-        frame = self.read(table)
-        where = self._active_where(spec, "t")
+    def _geometries(self, table: str, where: str) -> list:
         wkbs = [None if r[0] is None else bytes(r[0]) for r in
                 self._fetch(f"SELECT ST_AsBinary(t.geom, 'NDR') FROM {q(table)} AS t{where} ORDER BY t.fid")]
-        geoms = shapely.from_wkb(wkbs) if wkbs else []
-        return gpd.GeoDataFrame(frame, geometry=list(geoms), crs=self.settings.crs)
+        return list(shapely.from_wkb(wkbs)) if wkbs else []
 
     def snapshot(self) -> dict[str, list[tuple]]:
         """Every row of every table (geometries as WKB) and the settings, for tests that prove nothing changed."""
