@@ -55,12 +55,7 @@ def read_csv_table(path: str | Path, *, required: tuple[str, ...], label: str | 
         raise ImportDataError("the file holds a NUL byte (a binary or damaged file?); save it as plain UTF-8 CSV",
                               file=name, row=line - 1)
     header_line = text.splitlines()[0]
-    if "," not in header_line:
-        for delim, word in ((";", "semicolon"), ("\t", "tab"), ("|", "pipe")):
-            if delim in header_line:
-                raise ImportDataError(
-                    f"the file is {word}-delimited; hydroatlas reads comma-separated files "
-                    "(re-save it as CSV with commas)", file=name, row=0)
+    _check_delimiter(header_line, name)
     _check_field_counts(text, name)
     try:
         frame = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False, na_filter=False,
@@ -138,12 +133,7 @@ def iter_csv_chunks(path: str | Path, *, required: tuple[str, ...], label: str |
             yield read_csv_table(path, required=required, label=label)
             return
         header_line = header_text.splitlines()[0]
-        if "," not in header_line:
-            for delim, word in ((";", "semicolon"), ("\t", "tab"), ("|", "pipe")):
-                if delim in header_line:
-                    raise ImportDataError(
-                        f"the file is {word}-delimited; hydroatlas reads comma-separated files "
-                        "(re-save it as CSV with commas)", file=name, row=0)
+        _check_delimiter(header_line, name)
         written = [normalize_text(c) for c in next(csv.reader(io.StringIO(header_line)))]
         dupes = sorted({c for c in written if written.count(c) > 1})
         if dupes:
@@ -216,6 +206,16 @@ def iter_csv_chunks(path: str | Path, *, required: tuple[str, ...], label: str |
 def normalize_text(value: str) -> str:
     """A cell as stored: Unicode white space trimmed at both ends (non-breaking spaces too), NFC form."""
     return unicodedata.normalize("NFC", value.strip())
+
+
+def _check_delimiter(header_line: str, name: str) -> None:
+    """Refuse a header written with another delimiter than the comma, naming it."""
+    if "," not in header_line:
+        for delim, word in ((";", "semicolon"), ("\t", "tab"), ("|", "pipe")):
+            if delim in header_line:
+                raise ImportDataError(
+                    f"the file is {word}-delimited; hydroatlas reads comma-separated files "
+                    "(re-save it as CSV with commas)", file=name, row=0)
 
 
 def _check_field_counts(text: str, name: str, *, row_offset: int = 0, line_offset: int = 0) -> None:
